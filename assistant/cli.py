@@ -1,0 +1,91 @@
+"""The ``ohmtrail`` command line: parses arguments, calls the library, prints.
+
+Every mistake of the user's ends as one line on stderr (``FILE:LINE:COL: message`` where
+there is a place) and a non-zero exit status; never a traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import logging
+import sys
+from collections.abc import Callable, Sequence
+
+from assistant import __version__
+from assistant.errors import LocatedError, OhmtrailError
+from assistant.ruleset import lint_paths
+from assistant.ruleset.lint import summary
+from assistant.ruleset.model import Ruleset
+
+log = logging.getLogger("ohmtrail.cli")
+
+Handler = Callable[[argparse.Namespace], int]
+
+
+def _cmd_lint(args: argparse.Namespace) -> int:
+    result = lint_paths(args.paths)
+    for problem in result.problems:
+        print(problem, file=sys.stderr)
+    print(summary(result), file=sys.stderr if result.problems else sys.stdout)
+    return 1 if result.problems or result.files == 0 else 0
+
+
+def _cmd_schema(args: argparse.Namespace) -> int:
+    schema = Ruleset.model_json_schema()
+    schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+    schema["title"] = "ohmtrail ruleset, format 1"
+    print(json.dumps(schema, indent=2, sort_keys=False))
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser with every subcommand."""
+    parser = argparse.ArgumentParser(
+        prog="ohmtrail",
+        description="Troubleshooting assistant for vehicle electrical faults: finds the broken, "
+        "shorted or corroded part with the fewest meter minutes, and keeps the proof.",
+    )
+    parser.add_argument("--version", action="version", version=f"ohmtrail {__version__}")
+    parser.add_argument("-v", "--verbose", action="store_true", help="log what is done to stderr")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    p = sub.add_parser("lint", help="check ruleset files or folders for errors",
+                       description="Check ruleset files (or every *.yaml under folders): schema and "
+                       "semantic checks. Prints FILE:LINE:COL: message per problem; exit 1 if any.")
+    p.add_argument("paths", nargs="+", metavar="PATH")
+    p.set_defaults(handler=_cmd_lint)
+
+    p = sub.add_parser("schema", help="print the JSON Schema of the ruleset format",
+                       description="Print the JSON Schema of ruleset format 1, for editor completion.")
+    p.set_defaults(handler=_cmd_schema)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; returns the exit status."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING,
+                        format="%(name)s: %(message)s")
+    handler: Handler | None = getattr(args, "handler", None)
+    if handler is None:
+        parser.print_help()
+        return 2
+    try:
+        return handler(args)
+    except LocatedError as exc:
+        print(f"ohmtrail: {exc}" if not exc.file else str(exc), file=sys.stderr)
+        return 1
+    except OhmtrailError as exc:
+        print(f"ohmtrail: {exc}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print("ohmtrail: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

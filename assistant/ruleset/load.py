@@ -1,0 +1,233 @@
+"""Reading ruleset files: YAML 1.2 with positions, into frozen :class:`Ruleset` models.
+
+Every way a file can be wrong ends in a :class:`RulesetError` whose problems carry the file,
+line and column (1-based) and the field path: YAML syntax, duplicate keys (an error, never
+"last one wins"), an empty or binary file, a value of the wrong type or dimension, a YAML tag
+that would build an object. The parser is ruamel.yaml in YAML 1.2 mode, so ``no`` stays the
+text "no" and ``010`` is ten, not eight.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+from collections.abc import Iterable, Iterator, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from pydantic import ValidationError
+from ruamel.yaml import YAML
+from ruamel.yaml.comments import CommentedMap, CommentedSeq
+from ruamel.yaml.error import MarkedYAMLError, YAMLError
+
+from assistant.errors import Problem, RulesetError
+from assistant.ruleset.model import Ruleset
+
+RULESET_SUFFIXES = (".yaml", ".yml")
+
+
+@dataclass(frozen=True, eq=False)
+class Locator:
+    """Maps a field path (as pydantic reports it) to the line and column in the source."""
+
+    file: str
+    tree: Any
+
+    def locate(self, path: Sequence[str | int]) -> tuple[int, int]:
+        """1-based (line, column) of the deepest part of ``path`` present in the document."""
+        node = self.tree
+        line, col = _start(node)
+        for part in path:
+            if isinstance(node, CommentedMap) and part in node:
+                line, col = _pos(node.lc.value(part)) if _is_scalar(node[part]) else _start_of(node, part)
+                node = node[part]
+            elif isinstance(node, CommentedSeq) and isinstance(part, int) and 0 <= part < len(node):
+                line, col = _pos(node.lc.item(part))
+                node = node[part]
+            # else: a discriminator tag or a missing key: stay at the parent
+        return line, col
+
+    def problem(self, message: str, path: Sequence[str | int], value: Any = None) -> Problem:
+        """A problem at ``path``, located."""
+        line, col = self.locate(path)
+        return Problem(message, self.file, line, col, ".".join(str(p) for p in path), value)
+
+
+def _pos(pair: Any) -> tuple[int, int]:
+    return int(pair[0]) + 1, int(pair[1]) + 1
+
+
+def _start(node: Any) -> tuple[int, int]:
+    lc = getattr(node, "lc", None)
+    if lc is None or lc.line is None:
+        return 1, 1
+    return lc.line + 1, lc.col + 1
+
+
+def _start_of(parent: CommentedMap, key: Any) -> tuple[int, int]:
+    child = parent[key]
+    if isinstance(child, (CommentedMap, CommentedSeq)) and len(child):
+        return _start(child)
+    return _pos(parent.lc.value(key))
+
+
+def _is_scalar(value: Any) -> bool:
+    return not isinstance(value, (CommentedMap, CommentedSeq))
+
+
+@dataclass(frozen=True, eq=False)
+class LoadedRuleset:
+    """A validated ruleset with where it came from: path, SHA-256 of its bytes, positions."""
+
+    ruleset: Ruleset
+    path: str
+    sha256: str
+    locator: Locator = field(repr=False)
+    overlays: tuple[str, ...] = ()
+
+
+def _yaml() -> YAML:
+    yaml = YAML(typ="rt")
+    yaml.version = (1, 2)
+    yaml.allow_duplicate_keys = False
+    return yaml
+
+
+def read_text(path: Path, error: type[RulesetError] = RulesetError) -> tuple[bytes, str]:
+    """The bytes and UTF-8 text of a file, or a located error (missing, a folder, binary, empty)."""
+    name = str(path)
+    try:
+        data = path.read_bytes()
+    except FileNotFoundError as exc:
+        raise error(f"no such file", file=name) from exc
+    except IsADirectoryError as exc:
+        raise error("is a folder, not a file", file=name) from exc
+    except OSError as exc:
+        raise error(f"cannot be read: {exc.strerror or exc}", file=name) from exc
+    if b"\x00" in data:
+        raise error("is a binary file, not YAML text", file=name, line=1, column=1)
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = data[: exc.start].count(b"\n") + 1
+        col = exc.start - (data.rfind(b"\n", 0, exc.start) + 1) + 1
+        raise error(f"is not UTF-8 text (byte 0x{data[exc.start]:02x})", file=name, line=line,
+                    column=col) from exc
+    if not text.strip():
+        raise error("is empty", file=name, line=1, column=1)
+    return data, text
+
+
+def parse_yaml(text: str, name: str, error: type[RulesetError] = RulesetError) -> Any:
+    """The ruamel round-trip tree of a YAML text, or a located error."""
+    try:
+        tree = _yaml().load(text)
+    except MarkedYAMLError as exc:
+        mark = exc.problem_mark or exc.context_mark
+        message = " ".join(p for p in (exc.context, exc.problem) if p) or "YAML syntax error"
+        if "duplicate key" in message or type(exc).__name__ == "DuplicateKeyError":
+            message = f"duplicate key: {_duplicate_key(exc)}"
+        line = mark.line + 1 if mark else None
+        col = mark.column + 1 if mark else None
+        raise error(f"YAML: {message}", file=name, line=line, column=col) from exc
+    except YAMLError as exc:
+        raise error(f"YAML: {exc}", file=name, line=1, column=1) from exc
+    except (ValueError, TypeError, RecursionError) as exc:  # ruamel's own faults on odd input
+        raise error(f"YAML could not be read: {exc}", file=name, line=1, column=1) from exc
+    return tree
+
+
+def _duplicate_key(exc: MarkedYAMLError) -> str:
+    problem = exc.problem or ""
+    if "\"" in problem:
+        return problem.split("\"")[1]
+    return problem
+
+
+def to_plain(node: Any, locator: Locator, path: tuple[str | int, ...] = ()) -> Any:
+    """Plain dicts, lists and scalars from the ruamel tree; tags and odd types are errors."""
+    tag = getattr(getattr(node, "tag", None), "value", None)
+    if tag is not None and not str(tag).startswith("tag:yaml.org,2002:"):
+        raise RulesetError.from_problems([locator.problem(f"YAML tag '{tag}' is not allowed in a ruleset", path)])
+    if isinstance(node, CommentedMap):
+        out: dict[str, Any] = {}
+        for key, value in node.items():
+            if not isinstance(key, str):
+                raise RulesetError.from_problems(
+                    [locator.problem(f"key {key!r} must be text (quote it)", path + (key,), key)]
+                )
+            out[key] = to_plain(value, locator, path + (key,))
+        return out
+    if isinstance(node, CommentedSeq):
+        return [to_plain(v, locator, path + (i,)) for i, v in enumerate(node)]
+    if node is None or isinstance(node, bool):
+        return node
+    if isinstance(node, int):
+        return int(node)
+    if isinstance(node, float):
+        return float(node)
+    if isinstance(node, str):
+        return str(node)
+    if isinstance(node, (_dt.date, _dt.datetime)):
+        raise RulesetError.from_problems(
+            [locator.problem("a date is not expected here; quote it if it is text", path, str(node))]
+        )
+    raise RulesetError.from_problems(
+        [locator.problem(f"a YAML value of kind {type(node).__name__} is not allowed in a ruleset", path)]
+    )
+
+
+def validation_problems(exc: ValidationError, locator: Locator) -> list[Problem]:
+    """Located problems from a pydantic validation error, one per error."""
+    problems = []
+    for err in exc.errors(include_url=False):
+        loc = tuple(err["loc"])
+        message = _message(err)
+        name = ".".join(str(p) for p in loc)
+        problems.append(locator.problem(f"{name}: {message}" if name else message, loc, err.get("input")))
+    return problems
+
+
+def _message(err: dict[str, Any]) -> str:
+    kind = err["type"]
+    if kind == "missing":
+        return "required field is missing"
+    if kind == "extra_forbidden":
+        return "unknown field"
+    msg = str(err["msg"])
+    if msg.startswith("Value error, "):
+        msg = msg[len("Value error, "):]
+    if kind == "union_tag_invalid":
+        ctx = err.get("ctx") or {}
+        msg = f"unknown {ctx.get('discriminator', 'type')} {ctx.get('tag')!s}; expected one of {ctx.get('expected_tags')}"
+    return msg
+
+
+def load_ruleset(path: str | Path) -> LoadedRuleset:
+    """Load and validate one ruleset file (schema only; ``lint`` adds the semantic checks)."""
+    p = Path(path)
+    name = str(path)
+    data, text = read_text(p)
+    tree = parse_yaml(text, name)
+    locator = Locator(name, tree)
+    if not isinstance(tree, CommentedMap):
+        raise RulesetError("a ruleset is a YAML mapping (keys like 'id:' and 'components:')", file=name,
+                           line=1, column=1)
+    plain = to_plain(tree, locator)
+    try:
+        ruleset = Ruleset.model_validate(plain)
+    except ValidationError as exc:
+        raise RulesetError.from_problems(validation_problems(exc, locator)) from exc
+    return LoadedRuleset(ruleset, name, hashlib.sha256(data).hexdigest(), locator)
+
+
+def ruleset_files(paths: Iterable[str | Path]) -> Iterator[Path]:
+    """Every ruleset file named or found (recursively, *.yaml / *.yml) under the paths, sorted."""
+    for given in paths:
+        p = Path(given)
+        if p.is_dir():
+            yield from sorted(q for q in p.rglob("*") if q.suffix in RULESET_SUFFIXES and q.is_file()
+                              and not q.name.endswith(".overlay.yaml"))
+        else:
+            yield p

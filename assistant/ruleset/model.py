@@ -1,0 +1,554 @@
+"""The ruleset format, version 1: frozen pydantic models of one circuit and how to test it.
+
+A ruleset is data only. It names the circuit (nodes that are test points, components between
+them), the operating states that set its contacts, the fault modes with their prior weights,
+the tests a meter or the eye can make, the complaints a technician starts from, the shop's
+decision rules and the author's regression cases. Nothing in it is ever executed.
+
+Quantities are stored as SI floats (volts, ohms, amperes, watts, metres, square metres),
+except test costs and repair times, in minutes, and temperatures, in degrees Celsius. See
+``quantities.py`` for the accepted spellings. The models validate shape and value ranges;
+cross-references (unknown nodes, unknown faults) are checked by ``lint.py``.
+
+Every component type brings default fault modes and weights (``defaults.py``), so an author
+writes only what differs.
+"""
+
+from __future__ import annotations
+
+from typing import Annotated, Any, Literal, Union
+
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+
+from assistant.ruleset.quantities import (
+    Amperes,
+    Celsius,
+    Fraction,
+    Metres,
+    Minutes,
+    Ohms,
+    SquareMetres,
+    Volts,
+    Watts,
+)
+
+FORMAT_VERSION = 1
+
+Identifier = Annotated[
+    str,
+    Field(
+        pattern=r"^[A-Za-z][A-Za-z0-9_+\-]*$",
+        max_length=64,
+        description="a name: letters, digits, '_', '-', '+', starting with a letter",
+    ),
+]
+# A fault is named "<component>.<mode>"; "none" is the no-fault hypothesis.
+FaultId = Annotated[str, Field(pattern=r"^(none|[A-Za-z][A-Za-z0-9_+\-]*\.[a-z][a-z0-9_]*)$")]
+
+FaultMode = Literal[
+    "open",
+    "short_to_ground",
+    "short_to_power",
+    "high_resistance",
+    "blown",
+    "filament_open",
+    "stuck_open",
+    "stuck_closed",
+    "seized",
+    "worn",
+    "discharged",
+    "failing",
+    "no_output",
+    "low_output",
+    "internal_fault",
+    "stays_awake",
+]
+
+
+class Frozen(BaseModel):
+    """Base of every ruleset model: immutable, unknown keys rejected.
+
+    Types are checked in pydantic's lax mode (a YAML list fills a tuple); the YAML 1.2 parser
+    already keeps ``no`` a text and ``010`` a decimal number, so no value changes kind unseen.
+    """
+
+    model_config = ConfigDict(frozen=True, extra="forbid", strict=False)
+
+
+def _text_version(value: Any) -> Any:
+    # Authors write `version: 1.2` as often as `version: "1.2"`; both mean the text.
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        return str(value)
+    return value
+
+
+# --------------------------------------------------------------------------- metadata
+
+
+class Vehicle(Frozen):
+    """A vehicle (of the shop's own fleet) the ruleset is drawn for."""
+
+    model: str = Field(description="the fleet's name for the model")
+    years: str | None = Field(default=None, description="model years, e.g. '2019-2024'")
+    variant: str | None = None
+    notes: str | None = None
+
+
+class Repair(Frozen):
+    """What fixing a fault means: the action and the minutes it takes."""
+
+    action: str
+    minutes: Minutes = Field(default=15.0, gt=0)
+
+
+class Range(Frozen):
+    """A magnitude range for a fault (e.g. the resistance of a corroded joint)."""
+
+    low: float = Field(gt=0)
+    high: float = Field(gt=0)
+
+    @model_validator(mode="after")
+    def _ordered(self) -> Range:
+        if self.high < self.low:
+            raise ValueError("high must not be below low")
+        return self
+
+
+class FaultSpec(Frozen):
+    """One fault mode of a component as the author states it; omitted parts take defaults."""
+
+    weight: float = Field(ge=0, description="prior weight; 0 turns the mode off")
+    range: tuple[Ohms, Ohms] | None = Field(
+        default=None,
+        description="for high_resistance and shorts: [low, high] resistance, drawn log-uniform",
+    )
+    at: Identifier | None = Field(
+        default=None, description="for shorts: the node that is shorted (default: the component's last node)"
+    )
+    repair: Repair | None = None
+    description: str | None = None
+
+    @field_validator("range")
+    @classmethod
+    def _range_ordered(cls, value: tuple[float, float] | None) -> tuple[float, float] | None:
+        if value is not None and not (0 < value[0] <= value[1]):
+            raise ValueError("range must be [low, high] with 0 < low <= high")
+        return value
+
+
+def _weight_shorthand(value: Any) -> Any:
+    # `open: 2` means `open: {weight: 2}`.
+    if isinstance(value, dict):
+        return {k: ({"weight": v} if isinstance(v, (int, float)) and not isinstance(v, bool) else v)
+                for k, v in value.items()}
+    return value
+
+
+FaultTable = Annotated[dict[FaultMode, FaultSpec], Field(default_factory=dict)]
+
+
+class ComponentBase(Frozen):
+    """Fields every component has."""
+
+    id: Identifier
+    nodes: tuple[Identifier, ...] = Field(min_length=2, max_length=3)
+    label: str | None = Field(default=None, description="what the technician calls it")
+    location: str | None = None
+    tolerance: Fraction = Field(default=0.05, ge=0, le=1, description="relative tolerance of its value")
+    faults: FaultTable
+    repair: Repair | None = Field(default=None, description="default repair for all its faults")
+
+    @field_validator("faults", mode="before")
+    @classmethod
+    def _faults_shorthand(cls, value: Any) -> Any:
+        return _weight_shorthand(value)
+
+    @field_validator("nodes")
+    @classmethod
+    def _two_nodes(cls, value: tuple[str, ...]) -> tuple[str, ...]:
+        if len(value) != 2:
+            raise ValueError("this component joins exactly two nodes: [from, to]")
+        if value[0] == value[1]:
+            raise ValueError("a component cannot join a node to itself")
+        return value
+
+
+class Battery(ComponentBase):
+    """A battery: EMF behind internal resistance. nodes: [positive, negative]."""
+
+    type: Literal["battery"]
+    emf: Volts = Field(gt=0)
+    internal_resistance: Ohms = Field(default=0.01, gt=0)
+    discharged_emf: tuple[Volts, Volts] = Field(
+        default=(11.6, 12.2), description="EMF range of a discharged battery"
+    )
+
+
+class Wire(ComponentBase):
+    """A copper wire run. Resistance from length, cross-section and temperature."""
+
+    type: Literal["wire"]
+    length: Metres = Field(gt=0)
+    section: SquareMetres = Field(gt=0, description="cross-section: '1.5 mm2' or '18 AWG'")
+    temperature: Celsius = Field(default=20.0, ge=-60, le=200)
+    material: Literal["copper"] = "copper"
+
+
+class Connector(ComponentBase):
+    """A connector's mated contact pair."""
+
+    type: Literal["connector"]
+    resistance: Ohms = Field(default=0.002, ge=0)
+    pin: str | None = None
+
+
+class Fuse(ComponentBase):
+    """A fuse. It blows (opens) when its current exceeds rating × blow_factor."""
+
+    type: Literal["fuse"]
+    rating: Amperes = Field(gt=0)
+    resistance: Ohms | None = Field(default=None, ge=0, description="cold resistance; default from the rating")
+    blow_factor: float = Field(default=1.35, gt=1)
+
+
+class Switch(ComponentBase):
+    """A switch contact, closed in the operating states that list it in ``closes``."""
+
+    type: Literal["switch"]
+    resistance: Ohms = Field(default=0.005, ge=0, description="resistance when closed")
+
+
+class RelayContact(ComponentBase):
+    """A relay's contact, closed while its coil carries at least the pull-in current."""
+
+    type: Literal["relay_contact"]
+    coil: Identifier = Field(description="id of the relay_coil that operates it")
+    normally: Literal["open", "closed"] = "open"
+    resistance: Ohms = Field(default=0.01, ge=0)
+
+
+class RelayCoil(ComponentBase):
+    """A relay coil."""
+
+    type: Literal["relay_coil"]
+    resistance: Ohms = Field(gt=0)
+    pull_in: Amperes = Field(default=0.05, gt=0, description="current that closes its contacts")
+
+
+class Lamp(ComponentBase):
+    """A tungsten filament lamp; hot resistance from its rating, cold about a twelfth of it."""
+
+    type: Literal["lamp"]
+    rating: Watts = Field(gt=0)
+    rated_voltage: Volts | None = Field(default=None, gt=0, description="default: the system voltage")
+    cold_ratio: float = Field(default=12.0, ge=5, le=20, description="hot / cold resistance")
+    lamp_category: str | None = Field(default=None, description="e.g. P21W (for the parts list)")
+
+
+class Motor(ComponentBase):
+    """A permanent-magnet DC motor: armature resistance and back-EMF at running speed."""
+
+    type: Literal["motor"]
+    resistance: Ohms = Field(gt=0, description="armature resistance (sets the stall current)")
+    running_current: Amperes = Field(gt=0, description="current when running normally at rated voltage")
+    rated_voltage: Volts | None = Field(default=None, gt=0)
+
+
+class ModuleSupply(ComponentBase):
+    """A module output (supply feed or 5 V reference): a voltage behind an internal resistance.
+
+    nodes: [output, return]
+    """
+
+    type: Literal["module_supply"]
+    voltage: Volts = Field(gt=0)
+    internal_resistance: Ohms = Field(default=1.0, gt=0)
+    states: tuple[Identifier, ...] | None = Field(
+        default=None, description="operating states in which it is powered (default: all but key_off)"
+    )
+
+
+class Resistor(ComponentBase):
+    """A resistor: pull-up, pull-down, speed-resistor stage, a load's equivalent."""
+
+    type: Literal["resistor"]
+    resistance: Ohms = Field(gt=0)
+    role: Literal["pull_up", "pull_down", "load", "stage", "other"] = "other"
+
+
+class Sensor(ComponentBase):
+    """A sensor. Resistive: nodes [a, b], a resistance. Ratiometric: nodes [supply, signal, ground],
+    the signal is ``ratio`` × the supply voltage behind ``output_resistance``."""
+
+    type: Literal["sensor"]
+    kind: Literal["resistive", "ratiometric"]
+    resistance: Ohms | None = Field(default=None, gt=0, description="resistive: its resistance")
+    ratio: float | None = Field(default=None, gt=0, lt=1, description="ratiometric: signal / supply")
+    output_resistance: Ohms = Field(default=100.0, gt=0)
+    supply_resistance: Ohms = Field(default=5000.0, gt=0, description="ratiometric: load on the supply")
+
+    @field_validator("nodes")
+    @classmethod
+    def _two_nodes(cls, value: tuple[str, ...]) -> tuple[str, ...]:
+        if len(set(value)) != len(value):
+            raise ValueError("a sensor's nodes must differ")
+        return value
+
+    @model_validator(mode="after")
+    def _kind_fields(self) -> Sensor:
+        if self.kind == "resistive":
+            if len(self.nodes) != 2 or self.resistance is None:
+                raise ValueError("a resistive sensor has nodes [a, b] and a resistance")
+        elif len(self.nodes) != 3 or self.ratio is None:
+            raise ValueError("a ratiometric sensor has nodes [supply, signal, ground] and a ratio")
+        return self
+
+
+class Ground(ComponentBase):
+    """A ground connection (eyelet, strap, splice) to the chassis reference."""
+
+    type: Literal["ground"]
+    resistance: Ohms = Field(default=0.002, ge=0)
+
+
+class Load(ComponentBase):
+    """A load drawing a fixed current where modelled as a resistance (module sleep draw, a lamp
+    kept lit): resistance from the current it draws at the system voltage."""
+
+    type: Literal["load"]
+    current: Amperes = Field(gt=0, description="current it draws at the system voltage")
+    awake_current: Amperes | None = Field(default=None, gt=0, description="draw when it will not sleep")
+
+
+Component = Annotated[
+    Union[
+        Battery, Wire, Connector, Fuse, Switch, RelayContact, RelayCoil, Lamp, Motor,
+        ModuleSupply, Resistor, Sensor, Ground, Load,
+    ],
+    Field(discriminator="type"),
+]
+
+COMPONENT_TYPES: tuple[str, ...] = (
+    "battery", "wire", "connector", "fuse", "switch", "relay_contact", "relay_coil", "lamp",
+    "motor", "module_supply", "resistor", "sensor", "ground", "load",
+)
+
+
+# --------------------------------------------------------------------------- nodes and states
+
+
+class Node(Frozen):
+    """A test point: a place a probe can touch, and how to find it."""
+
+    label: str | None = None
+    connector: str | None = None
+    pin: str | None = None
+    wire: str | None = Field(default=None, description="wire colour or code")
+    location: str | None = None
+    probe: str | None = Field(default=None, description="how to reach it (back-probe, pierce, terminal)")
+
+
+class State(Frozen):
+    """An operating state (key off, pedal pressed, cranking): which switches it closes."""
+
+    label: str
+    closes: tuple[Identifier, ...] = ()
+    instructions: str | None = Field(default=None, description="how to set it, shown with each test")
+    cautions: tuple[str, ...] = ()
+
+
+# --------------------------------------------------------------------------- tests
+
+
+class TestBase(Frozen):
+    """Fields every test has."""
+
+    id: Identifier
+    title: str | None = None
+    cost: Minutes = Field(default=2.0, gt=0, description="minutes to make the test, access included")
+    state: Identifier | None = Field(default=None, description="operating state it needs")
+    access: str | None = Field(default=None, description="how to get at the test points")
+    instructions: str | None = None
+    cautions: tuple[str, ...] = ()
+    healthy: tuple[float, float] | None = Field(
+        default=None, description="override of the healthy range shown (SI units)"
+    )
+
+
+class VoltageTest(TestBase):
+    """DC voltage at a node against a reference point (default: the ruleset's ground)."""
+
+    kind: Literal["voltage"]
+    at: Identifier
+    reference: Identifier | None = None
+
+
+class DropTest(TestBase):
+    """Voltage drop between two nodes while the circuit carries its load."""
+
+    kind: Literal["drop"]
+    between: tuple[Identifier, Identifier]
+
+
+class ResistanceTest(TestBase):
+    """Resistance between two nodes with the circuit de-energised: sources out, ``isolate`` removed."""
+
+    kind: Literal["resistance"]
+    between: tuple[Identifier, Identifier]
+    isolate: tuple[Identifier, ...] = Field(
+        default=(), description="components disconnected for the test (fuse pulled, connector apart)"
+    )
+    only: tuple[Identifier, ...] = Field(
+        default=(), description="measure these components alone, out of the circuit (a pulled fuse, a lamp "
+        "out of its holder); the rest is disconnected"
+    )
+
+
+class CurrentTest(TestBase):
+    """Current in series with a component (the meter breaks the circuit at its first node)."""
+
+    kind: Literal["current"]
+    component: Identifier
+    jack: Literal["auto", "10A", "mA", "clamp"] = "auto"
+
+
+class FuseDropTest(TestBase):
+    """Millivolt drop across a fuse in place, read as current through the fuse's resistance."""
+
+    kind: Literal["fuse_drop"]
+    fuse: Identifier
+
+
+class ObservationTest(TestBase):
+    """A question answered by looking or trying ("fuse visibly blown?").
+
+    ``likelihoods`` maps a fault id (or a component id for all its modes, or ``default``) to
+    P(outcome) for each outcome; each row must sum to 1.
+    """
+
+    kind: Literal["observation"]
+    question: str
+    outcomes: tuple[Identifier, ...] = ("yes", "no")
+    likelihoods: dict[str, dict[str, float]]
+
+    @model_validator(mode="after")
+    def _rows(self) -> ObservationTest:
+        if "default" not in self.likelihoods:
+            raise ValueError("likelihoods need a 'default' row for the faults not named")
+        for key, row in self.likelihoods.items():
+            if set(row) != set(self.outcomes):
+                raise ValueError(f"row '{key}' must give every outcome {list(self.outcomes)}")
+            if any(p < 0 or p > 1 for p in row.values()) or abs(sum(row.values()) - 1) > 1e-6:
+                raise ValueError(f"row '{key}' must be probabilities that sum to 1")
+        return self
+
+
+Test = Annotated[
+    Union[VoltageTest, DropTest, ResistanceTest, CurrentTest, FuseDropTest, ObservationTest],
+    Field(discriminator="kind"),
+]
+
+
+# --------------------------------------------------------------------------- complaints, rules, cases
+
+
+class Complaint(Frozen):
+    """A starting symptom. Faults it does not lead to have their weight scaled by ``others``."""
+
+    id: Identifier
+    text: str
+    suspects: tuple[str, ...] = Field(
+        default=(), description="fault ids or component ids it points to; empty: all"
+    )
+    others: float = Field(default=0.1, ge=0, le=1)
+
+
+Operator = Literal["eq", "ne", "lt", "le", "gt", "ge", "in", "contains"]
+
+
+class Condition(Frozen):
+    """One test on a fact: ``complaint``, ``fault_code``, ``vehicle.<attr>``, ``reading.<test>``."""
+
+    fact: str = Field(pattern=r"^(complaint|fault_code|vehicle\.[a-z_]+|reading\.[A-Za-z][A-Za-z0-9_+\-]*)$")
+    op: Operator = "eq"
+    value: str | int | float | bool | tuple[str | int | float, ...]
+
+
+class Action(Frozen):
+    """What a rule does. Exactly one of its fields is set."""
+
+    scale: tuple[str, float] | None = Field(default=None, description="[fault id, factor]")
+    rule_out: str | None = Field(default=None, description="fault id")
+    require_first: Identifier | None = Field(default=None, description="test id")
+    caution: str | None = None
+    recommend: Identifier | None = Field(default=None, description="test id")
+
+    @model_validator(mode="after")
+    def _one(self) -> Action:
+        set_fields = [k for k, v in self.__dict__.items() if v is not None]
+        if len(set_fields) != 1:
+            raise ValueError("an action sets exactly one of: scale, rule_out, require_first, caution, recommend")
+        return self
+
+
+class Rule(Frozen):
+    """A shop rule: when every condition holds, do every action."""
+
+    id: Identifier
+    when: tuple[Condition, ...] = Field(min_length=1)
+    then: tuple[Action, ...] = Field(min_length=1)
+    why: str | None = None
+
+
+class Case(Frozen):
+    """An author's regression case: given these answers, expect this diagnosis."""
+
+    id: Identifier
+    complaint: Identifier | None = None
+    vehicle: dict[str, str | int | float] = Field(default_factory=dict)
+    fault_codes: tuple[str, ...] = ()
+    readings: dict[Identifier, str | int | float]
+    expect: FaultId
+    max_tests: int | None = Field(default=None, gt=0)
+    order: tuple[Identifier, ...] | None = Field(default=None, description="expected test order (prefix)")
+
+
+# --------------------------------------------------------------------------- the ruleset
+
+
+class Ruleset(Frozen):
+    """One circuit of one family of vehicles, with its faults, tests, states, rules and cases."""
+
+    format: Literal[1] = Field(description="ruleset format version")
+    id: Identifier
+    title: str
+    family: Identifier = Field(description="lamp, motor, sensor_feed, starter, key_off_draw, or another")
+    version: Annotated[str, Field(min_length=1)]
+    system_voltage: Volts = Field(gt=0)
+    applies_to: tuple[Vehicle, ...] = ()
+    cautions: tuple[str, ...] = ()
+    ground: Identifier = Field(default="GND", description="the reference node (chassis ground)")
+    power: Identifier | None = Field(
+        default=None, description="node a short to power goes to (default: the battery's positive)"
+    )
+    nodes: dict[Identifier, Node]
+    components: tuple[Component, ...] = Field(min_length=1)
+    states: dict[Identifier, State] = Field(min_length=1)
+    tests: tuple[Test, ...] = Field(min_length=1)
+    complaints: tuple[Complaint, ...] = ()
+    rules: tuple[Rule, ...] = ()
+    cases: tuple[Case, ...] = ()
+    threshold: float = Field(default=0.95, gt=0.5, lt=1, description="stop when a fault reaches it")
+
+    @field_validator("version", mode="before")
+    @classmethod
+    def _version_text(cls, value: Any) -> Any:
+        return _text_version(value)
+
+    @field_validator("nodes", mode="before")
+    @classmethod
+    def _empty_nodes(cls, value: Any) -> Any:
+        # `B_POS:` with nothing after it is a node with no probe notes yet.
+        if isinstance(value, dict):
+            return {k: ({} if v is None else v) for k, v in value.items()}
+        return value
