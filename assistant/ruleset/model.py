@@ -539,6 +539,9 @@ class Ruleset(Frozen):
     rules: tuple[Rule, ...] = ()
     cases: tuple[Case, ...] = ()
     threshold: float = Field(default=0.95, gt=0.5, lt=1, description="stop when a fault reaches it")
+    none_weight: float = Field(
+        default=0.2, ge=0, description="prior weight of 'none' (no fault in this circuit), beside the fault weights"
+    )
 
     @field_validator("version", mode="before")
     @classmethod
