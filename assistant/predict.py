@@ -43,6 +43,8 @@ class TestInfo:
     cost_minutes: float
     state: str | None
     outcomes: tuple[str, ...] = ()  # observation outcomes; () for meter tests
+    points: tuple[str, ...] = ()  # where the leads go: (red, black) nodes; the part for current tests
+    jack: str = "auto"  # current tests: the jack the ruleset asks for (auto, 10A, mA, clamp)
 
 
 @dataclass(frozen=True, eq=False)
