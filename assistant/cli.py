@@ -13,7 +13,7 @@ import sys
 from collections.abc import Callable, Sequence
 
 from assistant import __version__
-from assistant.errors import LocatedError, OhmtrailError
+from assistant.errors import LocatedError, OhmtrailError, OutputError
 from assistant.ruleset import lint_paths
 from assistant.ruleset.lint import check_ruleset, summary
 from assistant.ruleset.load import LoadedRuleset, load_ruleset
@@ -58,6 +58,23 @@ def _cmd_predict(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_spice(args: argparse.Namespace) -> int:
+    from assistant.spice import spice_deck
+
+    loaded = _load_checked(args.ruleset)
+    deck = spice_deck(loaded.ruleset, (args.fault or "none",), args.state)
+    if args.output:
+        try:
+            with open(args.output, "w", encoding="utf-8") as fh:
+                fh.write(deck.text)
+        except OSError as exc:
+            raise OutputError(f"{args.output}: cannot be written: {exc.strerror or exc}") from exc
+        print(f"wrote {args.output}: state '{deck.state}', {args.fault or 'no fault'}; run: ngspice -b {args.output}")
+    else:
+        sys.stdout.write(deck.text)
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser with every subcommand."""
     parser = argparse.ArgumentParser(
@@ -91,6 +108,16 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.add_argument("--no-cache", action="store_true", help="compute afresh; neither read nor write the cache")
     p.set_defaults(handler=_cmd_predict)
+
+    p = sub.add_parser("spice", help="write a SPICE deck of the circuit as modelled",
+                       description="Write a SPICE deck of the ruleset's circuit at nominal values in one "
+                       "operating state, with a fault injected (magnitude at the middle of its range), "
+                       "relays, fuses and motors settled. Check it with: ngspice -b FILE")
+    p.add_argument("ruleset", metavar="RULESET", help="a ruleset file")
+    p.add_argument("--fault", metavar="ID", help="inject this fault (default: none)")
+    p.add_argument("--state", metavar="S", help="operating state (default: the ruleset's first)")
+    p.add_argument("-o", "--output", metavar="FILE", help="write to FILE instead of standard output")
+    p.set_defaults(handler=_cmd_spice)
     return parser
 
 

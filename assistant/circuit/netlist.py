@@ -116,6 +116,10 @@ class CircuitModel:
         for part in self.parts:
             nodes += [n for n in part.nodes if n not in nodes]
         self.nodes: tuple[str, ...] = tuple(nodes)
+        if not any(ruleset.ground in part.nodes for part in self.parts):
+            raise CircuitError(f"no component connects to the ground node '{ruleset.ground}', so the circuit "
+                               "has no reference: " + ", ".join(p.id for p in self.parts),
+                               components=[p.id for p in self.parts])
         batteries = [p for p in self.parts if isinstance(p, BatteryPart)]
         self.power: str | None = ruleset.power or (batteries[0].nodes[0] if batteries else None)
         self.states: tuple[str, ...] = tuple(ruleset.states)
