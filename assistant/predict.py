@@ -18,6 +18,7 @@ Hypothesis 0 is always ``none`` (no fault in this circuit).
 from __future__ import annotations
 
 import dataclasses
+import functools
 import hashlib
 import json
 import logging
@@ -95,7 +96,7 @@ class PredictionTable:
 
 # --------------------------------------------------------------------------- computing the table
 
-ENGINE_VERSION = "1"  # bump when the circuit or meter models change: it keys the cache
+ENGINE_VERSION = "1"  # bump when the table's meaning changes; the engine's own source is hashed as well
 log = logging.getLogger("ohmtrail.predict")
 QUANTILES = (0.05, 0.5, 0.95)
 
@@ -256,6 +257,7 @@ def _cache_key(loaded: LoadedRuleset, meter: MeterProfile, samples: int, seed: i
                pairs: tuple[tuple[str, str], ...]) -> str:
     parts = {
         "engine": ENGINE_VERSION,
+        "engine_source": _engine_fingerprint(),
         "ruleset_sha256": loaded.sha256,
         "overlays": list(loaded.overlays),
         "ruleset": hashlib.sha256(loaded.ruleset.model_dump_json().encode()).hexdigest(),
@@ -265,6 +267,20 @@ def _cache_key(loaded: LoadedRuleset, meter: MeterProfile, samples: int, seed: i
         "pairs": [list(p) for p in pairs],
     }
     return hashlib.sha256(json.dumps(parts, sort_keys=True).encode()).hexdigest()[:40]
+
+
+@functools.lru_cache(maxsize=1)
+def _engine_fingerprint() -> str:
+    """SHA-256 over the source of the modules that compute the table: a changed model never reads
+    a stale cache."""
+    package = Path(__file__).resolve().parent
+    digest = hashlib.sha256()
+    for path in sorted((package / "circuit").glob("*.py")) + [package / "meter.py", package / "predict.py"]:
+        try:
+            digest.update(path.read_bytes())
+        except OSError:  # an installed package without its sources: the version alone keys it
+            digest.update(path.name.encode())
+    return digest.hexdigest()
 
 
 def _load_cached(key: str, loaded: LoadedRuleset) -> PredictionTable | None:
