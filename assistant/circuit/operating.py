@@ -1,11 +1,12 @@
 """Operating points: the circuit solved until its relays, fuses and motors agree with it.
 
 A relay contact closes when its coil carries at least its pull-in current (a normally closed
-one opens); a fuse whose current exceeds rating × blow_factor is blown and the circuit solved
+one opens) and holds until the coil current falls below 40 % of it (drop-out, from memory); a
+relay that its own load makes chatter (a weak supply collapses when the contact closes) is taken
+as at rest. A fuse whose current exceeds rating × blow_factor is blown and the circuit solved
 again with it open; a motor that the supply would not drive forward against its back-EMF is
 taken as stopped (a motor nothing drives does not generate). Each variant of the batch settles on its own. Fuses and motors only change one
-way (a blown fuse stays blown, a stopped motor stays stopped), relays may go either way; a relay
-that never settles (a coil fed through its own contact) is an error naming it.
+way (a blown fuse stays blown, a stopped motor stays stopped), so every variant settles.
 
 A blown fuse stays blown in every state: :func:`operate_states` solves every energised state,
 takes the union of the fuses blown in any of them, and solves again until that union is stable,
@@ -27,6 +28,8 @@ from assistant.errors import CircuitError
 log = logging.getLogger("ohmtrail.circuit")
 
 MAX_ROUNDS = 24
+DROP_OUT = 0.4  # a pulled-in relay holds down to this fraction of its pull-in current: from memory
+CHATTER_TOGGLES = 3  # a contact that changes this often in one solve is chattering
 STOPPED_AMPS = 1e-9  # a motor the supply drives no forward current into is not turning
 
 
@@ -69,12 +72,13 @@ def operate(
     B = batch.size
     blown_now = {f.id: (np.array(blown[f.id], dtype=bool) if blown and f.id in blown else np.zeros(B, dtype=bool))
                  for f in model.fuses}
-    contacts = {c.id: np.full(B, c.normally_closed) for c in model.contacts}
+    pulled = {c.id: np.zeros(B, dtype=bool) for c in model.contacts}
+    toggles = {c.id: np.zeros(B, dtype=int) for c in model.contacts}
     stalled = {m.id: np.zeros(B, dtype=bool) for m in model.motors}
     probes = tuple(probes)
     isolate, only = tuple(isolate), tuple(only)
-    history: list[dict[str, np.ndarray]] = []
     for _ in range(MAX_ROUNDS):
+        contacts = {c.id: pulled[c.id] ^ c.normally_closed for c in model.contacts}
         built = model.netlist(batch, state, energised=energised, contact_closed=contacts, blown=blown_now,
                               stalled=stalled, isolate=isolate, only=only, shunt=shunt)
         idx = [(built.net.index(a), built.net.index(b)) for a, b in probes]
@@ -82,20 +86,28 @@ def operate(
         point = OperatingPoint(state, built, sol, probes, contacts, blown_now, stalled)
         if not energised:
             return point
-        new_contacts = {}
+        new_pulled = {}
         for c in model.contacts:
-            pulled = np.abs(point.current(c.coil)) >= float(model.by_id[c.coil].spec.pull_in)
-            new_contacts[c.id] = ~pulled if c.normally_closed else pulled
+            coil_amps = np.abs(point.current(c.coil))
+            pull_in = float(model.by_id[c.coil].spec.pull_in)
+            now = np.where(pulled[c.id], coil_amps >= DROP_OUT * pull_in, coil_amps >= pull_in)
+            toggles[c.id] = toggles[c.id] + (now != pulled[c.id])
+            # a relay its own load makes chatter cannot hold in: taken as at rest
+            new_pulled[c.id] = now & (toggles[c.id] < CHATTER_TOGGLES)
         new_blown = {f.id: blown_now[f.id] | (np.abs(point.current(f.id)) > f.blow_amps) for f in model.fuses}
-        new_stalled = {m.id: stalled[m.id] | (point.current(m.id) < STOPPED_AMPS) for m in model.motors}
-        same = (_equal(new_contacts, contacts) and _equal(new_blown, blown_now) and _equal(new_stalled, stalled))
-        if same:
-            return point
-        history.append(contacts)
-        contacts, blown_now, stalled = new_contacts, new_blown, new_stalled
-    chattering = sorted(c for c in contacts if any(not np.array_equal(h[c], contacts[c]) for h in history[-4:]))
-    raise CircuitError("the relay contacts never settle (a coil switched by its own contact?): "
-                       + ", ".join(chattering or sorted(contacts)), components=chattering)
+        new_stalled = stalled
+        if _equal(new_pulled, pulled) and _equal(new_blown, blown_now):
+            # motors are judged once relays and fuses have settled around them
+            new_stalled = {m.id: stalled[m.id] | (point.current(m.id) < STOPPED_AMPS) for m in model.motors}
+            if _equal(new_stalled, stalled):
+                return point
+        for c, chatter in toggles.items():
+            if (chatter == CHATTER_TOGGLES).any():
+                log.debug("relay contact %s chatters in %d variants: taken as at rest", c,
+                          int((chatter == CHATTER_TOGGLES).sum()))
+        pulled, blown_now, stalled = new_pulled, new_blown, new_stalled
+    raise CircuitError(f"the circuit in state '{state}' does not settle after {MAX_ROUNDS} rounds of relays, "
+                       "fuses and motors: " + ", ".join(sorted(pulled)), components=sorted(pulled))
 
 
 def operate_states(
