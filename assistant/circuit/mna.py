@@ -27,7 +27,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.sparse import coo_matrix
+from scipy.sparse import coo_matrix, csr_matrix
 from scipy.sparse.csgraph import connected_components
 
 from assistant.errors import CircuitError
@@ -97,6 +97,15 @@ class Solution:
     response: np.ndarray  # (B, n, K)
 
 
+def subset(net: Netlist, keep: np.ndarray) -> Netlist:
+    """The same netlist for only the variants where ``keep`` is true."""
+    branches = tuple(Branch(br.owner, br.a, br.b, br.ohms[keep], br.emf[keep], br.active[keep])
+                     for br in net.branches)
+    sources = tuple(Vccs(s.owner, s.out_p, s.out_n, s.ctrl_p, s.ctrl_n, s.siemens[keep], s.active[keep])
+                    for s in net.vccs)
+    return Netlist(net.nodes, branches, sources, int(np.count_nonzero(keep)))
+
+
 def solve(net: Netlist, probes: Sequence[tuple[int, int]] = ()) -> Solution:
     """Solve every variant of the netlist; ``probes`` are node pairs to drive with 1 A each.
 
@@ -125,35 +134,34 @@ def solve(net: Netlist, probes: Sequence[tuple[int, int]] = ()) -> Solution:
 
     A = np.zeros((B, N, N))
     z = np.zeros((B, N, 1 + K))
+    ohms = np.stack([br.ohms for br in branches], axis=1) if branches else np.zeros((B, 0))
+    emf = np.stack([br.emf for br in branches], axis=1) if branches else np.zeros((B, 0))
+    active = np.stack([br.active for br in branches], axis=1) if branches else np.zeros((B, 0), dtype=bool)
+    # incidence: +1 where a branch leaves a (non-ground) node, -1 where it enters
+    inc = np.zeros((n, len(branches)))
+    cols = np.arange(len(branches))
+    inc[[br.a for br in branches], cols] += 1.0
+    inc[[br.b for br in branches], cols] -= 1.0
+    inc = inc[1:]
+    norton = np.array([j not in row_of for j in range(len(branches))], dtype=bool)
+    if norton.any():
+        g = np.divide(1.0, ohms[:, norton], out=np.zeros((B, int(norton.sum()))),
+                      where=active[:, norton] & (ohms[:, norton] > 0))
+        k1 = inc[:, norton]
+        A[:, : n - 1, : n - 1] = _conductance_matrix(k1, g)
+        z[:, : n - 1, 0] = (g * emf[:, norton]) @ k1.T
+    if zero_capable:
+        k2 = inc[:, zero_capable]  # (n-1, m)
+        on = active[:, zero_capable].astype(float)  # (B, m)
+        A[:, : n - 1, n - 1 :] = k2[None, :, :] * on[:, None, :]
+        A[:, n - 1 :, : n - 1] = np.swapaxes(A[:, : n - 1, n - 1 :], 1, 2)
+        rows = np.arange(n - 1, N)
+        A[:, rows, rows] = np.where(on > 0, -ohms[:, zero_capable], 1.0)
+        z[:, n - 1 :, 0] = np.where(on > 0, emf[:, zero_capable], 0.0)
 
     def idx(node: int) -> int | None:
         return None if node == GROUND else node - 1
 
-    for j, br in enumerate(branches):
-        ia, ib = idx(br.a), idx(br.b)
-        if j in row_of:
-            r = row_of[j]
-            on = br.active.astype(float)
-            if ia is not None:
-                A[:, ia, r] += on
-                A[:, r, ia] += on
-            if ib is not None:
-                A[:, ib, r] -= on
-                A[:, r, ib] -= on
-            A[:, r, r] = np.where(br.active, -br.ohms, 1.0)
-            z[:, r, 0] = np.where(br.active, br.emf, 0.0)
-            continue
-        g = np.divide(1.0, br.ohms, out=np.zeros(B), where=br.active & (br.ohms > 0))
-        j_src = g * br.emf
-        if ia is not None:
-            A[:, ia, ia] += g
-            z[:, ia, 0] += j_src
-        if ib is not None:
-            A[:, ib, ib] += g
-            z[:, ib, 0] -= j_src
-        if ia is not None and ib is not None:
-            A[:, ia, ib] -= g
-            A[:, ib, ia] -= g
     for src in net.vccs:
         gm = np.where(src.active, src.siemens, 0.0)
         for out_node, sign in ((src.out_p, -1.0), (src.out_n, 1.0)):
@@ -172,10 +180,10 @@ def solve(net: Netlist, probes: Sequence[tuple[int, int]] = ()) -> Solution:
             z[:, ib, 1 + k] -= 1.0
 
     # pin the first node of every floating island
-    for v, i in zip(*_island_heads(island), strict=True):
-        A[v, i - 1, :] = 0.0
-        A[v, i - 1, i - 1] = 1.0
-        z[v, i - 1, :] = 0.0
+    hv, hi = _island_heads(island)
+    A[hv, hi - 1, :] = 0.0
+    A[hv, hi - 1, hi - 1] = 1.0
+    z[hv, hi - 1, :] = 0.0
 
     try:
         x = np.linalg.solve(A, z)
@@ -204,6 +212,25 @@ def solve(net: Netlist, probes: Sequence[tuple[int, int]] = ()) -> Solution:
     return Solution(volts, island, currents, response)
 
 
+def _conductance_matrix(k: np.ndarray, g: np.ndarray) -> np.ndarray:
+    """(B, n-1, n-1) ``K diag(g) K^T`` for every variant, as one sparse-times-dense product.
+
+    Each branch touches at most four entries of the matrix, so the map from branch conductances
+    to matrix entries is a sparse (entries × branches) matrix with four non-zeros a column.
+    """
+    rows_n, E = k.shape
+    entry, branch, weight = [], [], []
+    for e in range(E):
+        nodes = np.nonzero(k[:, e])[0]
+        for i in nodes:
+            for j in nodes:
+                entry.append(i * rows_n + j)
+                branch.append(e)
+                weight.append(k[i, e] * k[j, e])
+    stamp = csr_matrix((weight, (entry, branch)), shape=(rows_n * rows_n, E))
+    return np.asarray(stamp @ g.T).T.reshape(g.shape[0], rows_n, rows_n)
+
+
 def _edges(net: Netlist) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(a, b, active (B, E)) of every element that joins two nodes."""
     a = [br.a for br in net.branches] + [s.out_p for s in net.vccs]
@@ -214,22 +241,51 @@ def _edges(net: Netlist) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 
 def _islands(net: Netlist) -> np.ndarray:
-    """(B, n) connected-component label of every node; 0 is the ground's island."""
+    """(B, n) connected-component label of every node; 0 is the ground's island.
+
+    Variants share few distinct patterns of present elements, so each pattern is labelled once.
+    """
     n = len(net.nodes)
     a, b, active = _edges(net)
-    patterns, inverse = np.unique(active, axis=0, return_inverse=True)
-    labels = np.zeros((len(patterns), n), dtype=int)
-    for p, pattern in enumerate(patterns):
-        on = pattern.astype(bool)
-        graph = coo_matrix((np.ones(int(on.sum())), (a[on], b[on])), shape=(n, n))
-        _, lab = connected_components(graph, directed=False)
-        ground = lab[GROUND]
+    packed = np.packbits(active, axis=1)
+    pattern_of: dict[bytes, int] = {}
+    inverse = np.empty(net.batch, dtype=int)
+    firsts: list[int] = []
+    for v in range(net.batch):
+        key = packed[v].tobytes()
+        p = pattern_of.get(key)
+        if p is None:
+            p = pattern_of[key] = len(firsts)
+            firsts.append(v)
+        inverse[v] = p
+    labels = np.zeros((len(firsts), n), dtype=int)
+    for p, v in enumerate(firsts):
+        on = active[v]
+        if n > 200:
+            graph = coo_matrix((np.ones(int(on.sum())), (a[on], b[on])), shape=(n, n))
+            lab = connected_components(graph, directed=False)[1]
+        else:
+            lab = _union_find(n, a[on], b[on])
         # relabel: ground's island 0, the others 1.. in order of their first node
-        order: dict[int, int] = {ground: 0}
-        for node_label in lab:
-            order.setdefault(int(node_label), len(order))
-        labels[p] = [order[int(x)] for x in lab]
-    return labels[np.asarray(inverse).reshape(-1)]
+        order: dict[int, int] = {int(lab[GROUND]): 0}
+        labels[p] = [order.setdefault(int(x), len(order)) for x in lab]
+    return labels[inverse]
+
+
+def _union_find(n: int, a: np.ndarray, b: np.ndarray) -> list[int]:
+    parent = list(range(n))
+
+    def find(x: int) -> int:
+        while parent[x] != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    for x, y in zip(a.tolist(), b.tolist(), strict=True):
+        rx, ry = find(x), find(y)
+        if rx != ry:
+            parent[max(rx, ry)] = min(rx, ry)
+    return [find(x) for x in range(n)]
 
 
 def _island_heads(island: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

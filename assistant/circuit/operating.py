@@ -21,7 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from assistant.circuit.mna import Solution, solve
+from assistant.circuit.mna import Netlist, Solution, solve, subset
 from assistant.circuit.netlist import Batch, Built, CircuitModel, Shunt
 from assistant.errors import CircuitError
 
@@ -67,8 +67,14 @@ def operate(
     isolate: Iterable[str] = (),
     only: Iterable[str] = (),
     shunt: Shunt | None = None,
+    start: OperatingPoint | None = None,
 ) -> OperatingPoint:
-    """Solve one state of a batch until relays, fuses and motors are consistent with it."""
+    """Solve one state of a batch until relays, fuses and motors are consistent with it.
+
+    Only the variants whose relays, fuses or motors changed are solved again each round. With
+    ``start`` (an earlier point of the same state and probes), the search resumes from it and
+    solves only the variants whose ``blown`` fuses differ from it.
+    """
     B = batch.size
     blown_now = {f.id: (np.array(blown[f.id], dtype=bool) if blown and f.id in blown else np.zeros(B, dtype=bool))
                  for f in model.fuses}
@@ -77,13 +83,25 @@ def operate(
     stalled = {m.id: np.zeros(B, dtype=bool) for m in model.motors}
     probes = tuple(probes)
     isolate, only = tuple(isolate), tuple(only)
+    solution: Solution | None = None
+    todo = np.ones(B, dtype=bool)
+    if start is not None:
+        pulled = {c.id: start.contact_closed[c.id] ^ c.normally_closed for c in model.contacts}
+        stalled = {m: np.array(v) for m, v in start.stalled.items()}
+        blown_now = {f: blown_now[f] | start.blown[f] for f in blown_now}
+        todo = np.zeros(B, dtype=bool)
+        for f in blown_now:
+            todo |= blown_now[f] != start.blown[f]
+        solution = start.solution
     for _ in range(MAX_ROUNDS):
         contacts = {c.id: pulled[c.id] ^ c.normally_closed for c in model.contacts}
         built = model.netlist(batch, state, energised=energised, contact_closed=contacts, blown=blown_now,
                               stalled=stalled, isolate=isolate, only=only, shunt=shunt)
-        idx = [(built.net.index(a), built.net.index(b)) for a, b in probes]
-        sol = solve(built.net, idx)
-        point = OperatingPoint(state, built, sol, probes, contacts, blown_now, stalled)
+        if todo.any():
+            idx = [(built.net.index(a), built.net.index(b)) for a, b in probes]
+            solution = _solve_some(built.net, idx, todo, solution)
+        assert solution is not None
+        point = OperatingPoint(state, built, solution, probes, contacts, blown_now, stalled)
         if not energised:
             return point
         new_pulled = {}
@@ -96,18 +114,39 @@ def operate(
             new_pulled[c.id] = now & (toggles[c.id] < CHATTER_TOGGLES)
         new_blown = {f.id: blown_now[f.id] | (np.abs(point.current(f.id)) > f.blow_amps) for f in model.fuses}
         new_stalled = stalled
-        if _equal(new_pulled, pulled) and _equal(new_blown, blown_now):
+        changed = _changed(new_pulled, pulled, B) | _changed(new_blown, blown_now, B)
+        if not changed.any():
             # motors are judged once relays and fuses have settled around them
             new_stalled = {m.id: stalled[m.id] | (point.current(m.id) < STOPPED_AMPS) for m in model.motors}
-            if _equal(new_stalled, stalled):
+            changed = _changed(new_stalled, stalled, B)
+            if not changed.any():
                 return point
         for c, chatter in toggles.items():
             if (chatter == CHATTER_TOGGLES).any():
                 log.debug("relay contact %s chatters in %d variants: taken as at rest", c,
                           int((chatter == CHATTER_TOGGLES).sum()))
-        pulled, blown_now, stalled = new_pulled, new_blown, new_stalled
+        pulled, blown_now, stalled, todo = new_pulled, new_blown, new_stalled, changed
     raise CircuitError(f"the circuit in state '{state}' does not settle after {MAX_ROUNDS} rounds of relays, "
                        "fuses and motors: " + ", ".join(sorted(pulled)), components=sorted(pulled))
+
+
+def _solve_some(net: Netlist, probes: list[tuple[int, int]], todo: np.ndarray,
+                previous: Solution | None) -> Solution:
+    """Solve the variants in ``todo``; the others keep their previous solution."""
+    if previous is None or todo.all():
+        return solve(net, probes)
+    part = solve(subset(net, todo), probes)
+    volts, island = previous.volts.copy(), previous.island.copy()
+    currents, response = previous.currents.copy(), previous.response.copy()
+    volts[todo], island[todo], currents[todo], response[todo] = part.volts, part.island, part.currents, part.response
+    return Solution(volts, island, currents, response)
+
+
+def _changed(new: Mapping[str, np.ndarray], old: Mapping[str, np.ndarray], size: int) -> np.ndarray:
+    out = np.zeros(size, dtype=bool)
+    for key, value in new.items():
+        out |= value != old[key]
+    return out
 
 
 def operate_states(
@@ -116,16 +155,14 @@ def operate_states(
     probes: Mapping[str, Sequence[tuple[str, str]]],
 ) -> dict[str, OperatingPoint]:
     """Every operating state of the ruleset, solved with the fuses any state blows blown in all."""
-    blown: dict[str, np.ndarray] | None = None
-    for _ in range(len(model.fuses) + 2):
-        points = {s: operate(model, batch, s, blown=blown, probes=probes.get(s, ())) for s in model.states}
+    points = {s: operate(model, batch, s, probes=probes.get(s, ())) for s in model.states}
+    for _ in range(len(model.fuses) + 1):
         union = {f.id: np.logical_or.reduce([p.blown[f.id] for p in points.values()]) for f in model.fuses}
-        if blown is not None and _equal(union, blown):
+        if all(_equal(union, p.blown) for p in points.values()):
             return points
-        if not any(u.any() for u in union.values()):
-            return points
-        blown = union
-    log.debug("fuse states still changing after %d passes", len(model.fuses) + 2)
+        points = {s: operate(model, batch, s, blown=union, probes=probes.get(s, ()), start=p)
+                  for s, p in points.items()}
+    log.debug("fuse states still changing after %d passes", len(model.fuses) + 1)
     return points
 
 
