@@ -133,3 +133,25 @@ def test_singular_controlled_source_is_a_circuit_error_not_linalg() -> None:
     with pytest.raises(CircuitError) as err:
         solve(Netlist(("0", "a"), branches, sources, 1))
     assert "load" in err.value.components
+
+
+def test_sparse_factorisation_agrees_with_the_dense_batch(monkeypatch: pytest.MonkeyPatch) -> None:
+    # large circuits are factorised sparse, variant by variant; both paths must give one answer
+    from pathlib import Path
+
+    from assistant.circuit import mna
+    from assistant.circuit.netlist import CircuitModel
+    from assistant.predict import hypotheses_of
+    from assistant.ruleset.load import load_ruleset
+
+    ruleset = load_ruleset(Path(__file__).resolve().parents[2] / "rulesets" / "lamp" / "stop_lamps.yaml").ruleset
+    model = CircuitModel(ruleset)
+    _, members = hypotheses_of(ruleset)
+    batch = model.batch(members, 3)
+    net = model.netlist(batch, ruleset.tests[-1].state or model.states[0]).net
+    dense = solve(net, probes=[(3, 0)])
+    monkeypatch.setattr(mna, "SPARSE_ABOVE", 0)
+    sparse = solve(net, probes=[(3, 0)])
+    assert np.allclose(sparse.volts, dense.volts, rtol=1e-12, atol=1e-12)
+    assert np.allclose(sparse.response, dense.response, rtol=1e-10, atol=1e-12)
+    assert np.array_equal(sparse.island, dense.island)
