@@ -175,3 +175,12 @@ def test_default_samples_keep_the_meter_default(loaded) -> None:  # type: ignore
     assert predict_module._cache_key(loaded, default_meter(), 2, 0, ()) != predict_module._cache_key(
         loaded, other, 2, 0, ())
     assert t.samples.shape[2] == 2
+
+
+def test_hypotheses_in_groups_give_the_same_table(loaded, monkeypatch: pytest.MonkeyPatch) -> None:  # type: ignore[no-untyped-def]
+    # large harnesses are solved a few hypotheses at a time; the table must not depend on it
+    whole = predict_module.compute_table(loaded, default_meter(), samples=4)
+    monkeypatch.setattr(predict_module, "GROUP_NODE_VARIANTS", 4 * 15 * 3)
+    grouped = predict_module.compute_table(loaded, default_meter(), samples=4)
+    assert np.array_equal(whole.samples, grouped.samples, equal_nan=True)
+    assert np.array_equal(whole.sigma, grouped.sigma, equal_nan=True)
