@@ -188,7 +188,7 @@ def solve(net: Netlist, probes: Sequence[tuple[int, int]] = ()) -> Solution:
 
 
 SPARSE_ABOVE = 150  # unknowns above which each variant is factorised sparse, one by one
-CHUNK_ENTRIES = 8e6  # matrix entries held at once (64 MB of float64)
+CHUNK_ENTRIES = 2e6  # matrix entries held at once (16 MB of float64)
 DENSE_MAP_ENTRIES = 2e6  # stamp maps up to this size are plain arrays
 
 
@@ -282,9 +282,10 @@ class _Pattern:
 
     def dense(self, data: np.ndarray) -> np.ndarray:
         """The matrix (or matrices) of entries ``data``, dense."""
-        out = np.zeros(data.shape[:-1] + (self.size, self.size))
-        out[..., self.rows, self.cols] = data
-        return out
+        lead = data.shape[:-1]
+        flat = np.zeros((int(np.prod(lead, dtype=int)), self.size * self.size))
+        flat[:, self.rows * self.size + self.cols] = data.reshape(-1, data.shape[-1])
+        return flat.reshape(lead + (self.size, self.size))
 
     def solve_dense(self, data: np.ndarray, z: np.ndarray) -> np.ndarray:
         return np.linalg.solve(self.dense(data), z)
