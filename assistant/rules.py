@@ -24,6 +24,8 @@ Traps of durable-rules handled here, each with a test in tests/test_rules.py:
   in their own field. Semantics: a condition whose value is a number, or whose operator orders
   (lt, le, gt, ge), compares numbers; a text value that reads as a number compares as a number
   for ``vehicle.*`` and ``reading.*`` facts, and as text for ``complaint`` and ``fault_code``.
+- Numbers written with an exponent (``1e-05``, as Python writes 10 uA) break the engine's
+  JSON reader: numbers travel as whole millionths of the SI value, OL as a fixed huge value.
 - ``contains`` (a text inside a fact's text) is computed here, since the engine's pattern
   matching does not cover it reliably; the result goes to the engine as a derived fact.
 """
@@ -54,7 +56,8 @@ _SESSION_IDS = itertools.count(1)
 
 VEHICLE_FIELDS: tuple[str, ...] = tuple(VehicleInfo.model_fields)
 TEXT_FACTS = ("complaint", "fault_code")
-OVERLOAD = 1e300  # an OL reading in numeric comparisons: above any number a rule can name
+OVERLOAD = 1e12  # an OL reading in numeric comparisons (SI): above any number a rule can name
+_SCALE = 1_000_000  # numbers travel as whole millionths: the engine cannot read 1e-05 or 1e+300
 
 FactValue = str | int | float | bool
 
@@ -71,6 +74,11 @@ def _text(value: FactValue) -> str:
             return f"s:{int(value)}"
         return f"s:{float(value)!r}"
     return f"s:{value}"
+
+
+def _wire(number: float) -> int:
+    """A number as the engine receives it: whole millionths, clamped to the overload value."""
+    return int(round(max(-OVERLOAD, min(OVERLOAD, number)) * _SCALE))
 
 
 def _number(value: Any) -> float | None:
@@ -185,6 +193,8 @@ class RuleEngine:
         for fact, text in dict.fromkeys(self._contains):
             present = any(name == fact and text.lower() in str(value).lower() for name, value in plain)
             messages.append({"fact": f"s:{fact}~{text}", "text": _text(present)})
+        if not messages:
+            return Evaluation(())
         with _LOCK:
             sid = f"e{next(_SESSION_IDS)}"
             run = _Run(dict(plain))
@@ -225,7 +235,7 @@ class RuleEngine:
         if name not in TEXT_FACTS:
             number = _number(value)
             if number is not None:
-                message["num"] = number
+                message["num"] = _wire(number)
         return message
 
     def _place(self, rule_id: str | None) -> str:
@@ -266,13 +276,13 @@ def _comparison(cond: Condition) -> Any:
             expr = term if expr is None else expr | term
         return expr
     if op in ("lt", "le", "gt", "ge"):
-        number = _number(value)
+        number = _wire(_number(value))  # type: ignore[arg-type]  # check_rules left out non-numbers
         field = m.num
         return {"lt": field < number, "le": field <= number, "gt": field > number, "ge": field >= number}[op]
     if op == "ne":
         number = _number(value) if numeric_fact or not isinstance(value, str) else None
         if number is not None and not isinstance(value, bool):
-            return m.num != number
+            return m.num != _wire(number)
         return m.text != _text(value)  # type: ignore[arg-type]
     return _equal(m, value, numeric_fact)
 
@@ -281,7 +291,7 @@ def _equal(m: Any, value: Any, numeric_fact: bool) -> Any:
     if isinstance(value, bool):
         return m.text == _text(value)
     if isinstance(value, (int, float)) or (numeric_fact and _number(value) is not None):
-        return m.num == _number(value)
+        return m.num == _wire(_number(value))  # type: ignore[arg-type]
     return m.text == _text(value)
 
 
@@ -330,7 +340,7 @@ def reading_fact(value: float | None, overload: bool, outcome: str | None) -> Fa
     if outcome is not None:
         return outcome
     if overload:
-        return OVERLOAD
+        return "OL"
     return float(value) if value is not None else ""
 
 
