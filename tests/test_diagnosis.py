@@ -92,8 +92,11 @@ def _pair_table(pairs: Sequence[tuple[str, str]]) -> PredictionTable:
         pa, pb = (TABLE.hypotheses[TABLE.hypothesis_index(x)] for x in (a, b))
         hyps.append(Hypothesis(f"{a}+{b}", (a, b), pa.prior * pb.prior, f"{pa.repair}; {pb.repair}",
                                pa.repair_minutes + pb.repair_minutes))
-        # invented: this pair shows the feed healthy, the ground drop high and the lamp open
-        spec[f"{a}+{b}"] = {"v_feed": (12.3, 0.05), "drop_gnd": ("uniform", 1.0, 6.0), "r_lamp": "OL"}
+        if {a, b} == {"lamp.filament_open", "strap.high_resistance"}:
+            # invented: this pair shows the feed healthy, the ground drop high and the lamp open
+            spec[f"{a}+{b}"] = {"v_feed": (12.3, 0.05), "drop_gnd": ("uniform", 1.0, 6.0), "r_lamp": "OL"}
+        else:  # the others read as their first fault does
+            spec[f"{a}+{b}"] = TINY_SPEC[a]
     return build_table(hyps, TABLE.tests, spec, default=TINY_DEFAULT)
 
 
