@@ -102,6 +102,12 @@ def format_stamp(text: str | None) -> str:
     return stamp.strftime("%Y-%m-%d %H:%M:%S UTC") if stamp else clean_text(text)
 
 
+def format_stamp_short(text: str) -> str:
+    """A stamp for a table cell, UTC implied: ``"2026-12-01 08:17:55"``."""
+    stamp = parse_time(text)
+    return stamp.strftime("%Y-%m-%d %H:%M:%S") if stamp else clean_text(text)
+
+
 def clean_text(text: str) -> str:
     """User text with control characters (other than newline and tab) taken out."""
     return _CONTROL.sub("", text.replace("\r\n", "\n").replace("\r", "\n"))
