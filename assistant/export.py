@@ -27,6 +27,7 @@ import json
 import logging
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 from pydantic import ValidationError
@@ -310,3 +311,21 @@ def record_from_export(data: Mapping[str, Any]) -> SessionRecord:
     if not result.intact:
         raise IntegrityError(result.message)
     return SessionRecord.model_validate({**data["session"], "steps": data["steps"]})
+
+
+def export_json(record: SessionRecord) -> str:
+    """The export of a record as JSON text (indented, UTF-8 characters kept), ending in a newline."""
+    return json.dumps(export_session(record), indent=2, ensure_ascii=False) + "\n"
+
+
+def read_export(path: Path) -> Any:
+    """The JSON document in an export file; IntegrityError naming the file if it cannot be read."""
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        reason = exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc)
+        raise IntegrityError(f"{path}: cannot read: {reason}") from exc
+    try:
+        return json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise IntegrityError(f"{path}:{exc.lineno}:{exc.colno}: not JSON: {exc.msg}") from exc

@@ -14,7 +14,6 @@ every user text escaped, and hands it to :mod:`assistant.report_pdf` for the PDF
 from __future__ import annotations
 
 import html
-import json
 import logging
 import re
 from collections.abc import Mapping
@@ -32,7 +31,7 @@ from assistant.display import (
     format_suspects,
 )
 from assistant.errors import OutputError
-from assistant.export import check_record, export_session
+from assistant.export import check_record, export_json, export_session
 from assistant.record import SessionRecord, Step
 from assistant.report_pdf import pdf_from_content
 from assistant.trail import Drawing, render_trail
@@ -282,7 +281,8 @@ def write_output(path: Path, data: bytes) -> Path:
     return path
 
 
-def _safe_stem(session_id: str) -> str:
+def output_stem(session_id: str) -> str:
+    """A file-name stem made from a session id (anything but letters, digits, . _ - becomes _)."""
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", session_id).strip("._") or "session"
 
 
@@ -296,11 +296,11 @@ def write_outputs(record: SessionRecord, folder: Path,
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise OutputError(f"{folder}: cannot create the folder: {exc.strerror or exc}") from exc
-    stem = _safe_stem(record.id)
+    stem = output_stem(record.id)
     drawing = render_trail(record, "svg", names)
     if drawing.hint:
         log.warning("%s", drawing.hint)
-    export = json.dumps(export_session(record), indent=2, ensure_ascii=False) + "\n"
+    export = export_json(record)
     return [write_output(folder / f"{stem}-trail.{drawing.format}", drawing.data),
             write_output(folder / f"{stem}-report.pdf", render_report(record, "pdf", names)),
             write_output(folder / f"{stem}-report.html", render_report(record, "html", names)),
