@@ -14,7 +14,7 @@ from assistant.record import Step
 _UNIT_SYMBOL = {"ohm": "Ω", "ohms": "Ω", "Ω": "Ω", "v": "V", "a": "A"}
 # (factor, prefix) from large to small; the first whose scaled value is at least 1 is used.
 _PREFIXES = ((1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "µ"))
-_CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f-\x9f\u2028\u2029]")
+_CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f-\x9f\u2028\u2029\ud800-\udfff\ufffe\uffff]")
 
 
 def unit_symbol(unit: str | None) -> str:

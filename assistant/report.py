@@ -30,7 +30,7 @@ from assistant.display import (
     format_stamp_short,
     format_suspects,
 )
-from assistant.errors import OutputError
+from assistant.errors import IntegrityError, OutputError
 from assistant.export import check_record, export_json, export_session
 from assistant.record import SessionRecord, Step
 from assistant.report_pdf import pdf_from_content
@@ -129,9 +129,14 @@ def _step_row(step: Step, names: Mapping[str, str], undone: set[int]) -> StepRow
 def report_content(record: SessionRecord, names: Mapping[str, str] | None = None) -> ReportContent:
     """What the claim report of a record says, ready for any renderer to escape and lay out."""
     names = names or {}
-    check = check_record(record)
-    export = export_session(record)
-    integrity = export["integrity"]
+    try:
+        check = check_record(record)
+        integrity = export_session(record)["integrity"]
+        problem = None if check.intact else check.message
+    except IntegrityError as exc:  # a text that cannot be sealed (not encodable as UTF-8)
+        integrity = {"digest": "unavailable", "step_count": len(record.steps),
+                     "last_step_digest": "unavailable"}
+        problem = str(exc)
     in_progress = record.status == "open"
     status = {"open": "IN PROGRESS: the session is still open; nothing below is final",
               "concluded": "concluded", "closed": "closed",
@@ -163,7 +168,7 @@ def report_content(record: SessionRecord, names: Mapping[str, str] | None = None
     return ReportContent(
         title=f"Electrical fault diagnosis report: session {clean_text(record.id)}",
         in_progress=in_progress, status_line=status,
-        integrity_problem=None if check.intact else check.message,
+        integrity_problem=problem,
         facts=tuple(facts),
         diagnosis=(_name(record.diagnosis, names) if record.diagnosis
                    else "no diagnosis yet" if in_progress else "no fault certain enough"),

@@ -58,6 +58,8 @@ def html_text(text: str | None, width: int = MAIN_WIDTH) -> str:
     for paragraph in clean_text(text).split("\n"):
         lines.extend(textwrap.wrap(paragraph, width=width, break_long_words=True,
                                    break_on_hyphens=False) or [""])
+    if not any(lines):
+        return "&#160;"  # graphviz refuses an empty <FONT> or <I> element
     return '<BR ALIGN="LEFT"/>'.join(html.escape(line, quote=True) for line in lines)
 
 

@@ -15,6 +15,8 @@ import shutil
 from pathlib import Path
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from assistant.errors import OutputError
 from assistant.record import SessionRecord, Step
@@ -168,3 +170,20 @@ def test_each_format_renders(fmt: str, magic: bytes) -> None:
     drawing = render_trail(load_session(), fmt)
     assert drawing.format == fmt and drawing.hint is None
     assert drawing.data.startswith(magic)
+
+
+@needs_dot
+@settings(max_examples=30, deadline=None)
+@given(text=st.text(max_size=120))
+def test_any_text_leaves_the_drawing_whole(text: str) -> None:
+    # Property: whatever a note or complaint holds, dot parses the source and finds the same
+    # nodes as for the plain session.
+    import graphviz
+
+    record = load_session()
+    steps = list(record.steps)
+    steps[8] = steps[8].model_copy(update={"note": text})
+    hostile = record.model_copy(update={"steps": tuple(steps), "complaint": text})
+    plain = _node_names(graphviz.Source(dot_source(record)).pipe(format="json").decode())
+    drawn = _node_names(graphviz.Source(dot_source(hostile)).pipe(format="json").decode())
+    assert drawn == plain
