@@ -19,6 +19,7 @@ from assistant.history import HEADER as HISTORY_HEADER
 from assistant.history import Repair, default_ruleset_roots, known_ruleset_ids, read_history, repairs_from_store
 from assistant.learn import learn
 from assistant.overlay import beside_path, overlay_document
+from assistant.scaffold import FAMILIES, write_scaffold
 from assistant.ruleset import LoadedRuleset, lint_paths, load_ruleset
 from assistant.ruleset.lint import summary
 from assistant.ruleset.model import Ruleset
@@ -117,6 +118,13 @@ def _cmd_learn(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_new(args: argparse.Namespace) -> int:
+    target = write_scaffold(args.family, args.name, args.output)
+    print(f"wrote {target}: a {args.family} ruleset to adapt; then `ohmtrail lint {target}` and "
+          f"`ohmtrail check {target}`")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser with every subcommand."""
     parser = argparse.ArgumentParser(
@@ -156,6 +164,14 @@ def build_parser() -> argparse.ArgumentParser:
                    help="rulesets whose ids the history may also name (rows for them are skipped); default: "
                    "the rulesets/ folder the ruleset is in")
     p.set_defaults(handler=_cmd_learn)
+
+    p = sub.add_parser("new", help="write a commented starting ruleset for a circuit family",
+                       description="Write NAME.yaml: a commented starting ruleset for the family that "
+                       "lints clean and has one case, for the author to adapt. Never overwrites a file.")
+    p.add_argument("family", metavar="FAMILY", choices=FAMILIES, help=", ".join(FAMILIES))
+    p.add_argument("name", metavar="NAME", help="the new ruleset's id (and file name)")
+    p.add_argument("-o", "--output", metavar="FILE", help="where to write it (default: NAME.yaml)")
+    p.set_defaults(handler=_cmd_new)
     return parser
 
 
