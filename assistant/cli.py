@@ -18,6 +18,8 @@ from assistant.errors import LocatedError, OhmtrailError, OutputError
 from assistant.history import HEADER as HISTORY_HEADER
 from assistant.history import Repair, default_ruleset_roots, known_ruleset_ids, read_history, repairs_from_store
 from assistant.learn import learn
+from assistant.netgraph import FORMATS as GRAPH_FORMATS
+from assistant.netgraph import circuit_graph, render_graph
 from assistant.overlay import beside_path, overlay_document
 from assistant.scaffold import FAMILIES, write_scaffold
 from assistant.ruleset import LoadedRuleset, lint_paths, load_ruleset
@@ -125,6 +127,18 @@ def _cmd_new(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_graph(args: argparse.Namespace) -> int:
+    loaded = load_with_overlays(args)
+    graph = circuit_graph(loaded.ruleset, args.state)
+    out = args.output or f"{Path(args.ruleset).stem}{'-' + args.state if args.state else ''}.{args.format}"
+    drawing = render_graph(graph, args.format, out)
+    if drawing.hint:
+        print(drawing.hint, file=sys.stderr)
+    else:
+        print(f"wrote {drawing.path}")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser with every subcommand."""
     parser = argparse.ArgumentParser(
@@ -172,6 +186,17 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("name", metavar="NAME", help="the new ruleset's id (and file name)")
     p.add_argument("-o", "--output", metavar="FILE", help="where to write it (default: NAME.yaml)")
     p.set_defaults(handler=_cmd_new)
+
+    p = sub.add_parser("graph", help="draw a ruleset's circuit as modelled",
+                       description="Draw the circuit of a ruleset with Graphviz: test points (nodes) with "
+                       "their tests, components with their values, and which states close each switch. "
+                       "Without the 'dot' program the DOT source is written instead, with a hint.")
+    p.add_argument("ruleset", metavar="RULESET")
+    p.add_argument("--format", choices=GRAPH_FORMATS, default="svg", help="output format (default svg)")
+    p.add_argument("-o", "--output", metavar="FILE", help="where to write it (default: NAME.FORMAT here)")
+    p.add_argument("--state", metavar="S", help="draw the contacts as this operating state sets them")
+    add_overlay_options(p)
+    p.set_defaults(handler=_cmd_graph)
     return parser
 
 
