@@ -34,13 +34,21 @@ class Locator:
     file: str
     tree: Any
 
-    def locate(self, path: Sequence[str | int]) -> tuple[int, int]:
-        """1-based (line, column) of the deepest part of ``path`` present in the document."""
+    def locate(self, path: Sequence[str | int], at_key: bool = False) -> tuple[int, int]:
+        """1-based (line, column) of the deepest part of ``path`` present in the document.
+
+        With ``at_key``, the last part is located at its key rather than its value.
+        """
         node = self.tree
         line, col = _start(node)
-        for part in path:
+        for i, part in enumerate(path):
             if isinstance(node, CommentedMap) and part in node:
-                line, col = _pos(node.lc.value(part)) if _is_scalar(node[part]) else _start_of(node, part)
+                if at_key and i == len(path) - 1:
+                    line, col = _pos(node.lc.key(part))
+                elif _is_scalar(node[part]):
+                    line, col = _pos(node.lc.value(part))
+                else:
+                    line, col = _start_of(node, part)
                 node = node[part]
             elif isinstance(node, CommentedSeq) and isinstance(part, int) and 0 <= part < len(node):
                 line, col = _pos(node.lc.item(part))
@@ -48,10 +56,25 @@ class Locator:
             # else: a discriminator tag or a missing key: stay at the parent
         return line, col
 
-    def problem(self, message: str, path: Sequence[str | int], value: Any = None) -> Problem:
+    def problem(self, message: str, path: Sequence[str | int], value: Any = None,
+                at_key: bool = False) -> Problem:
         """A problem at ``path``, located."""
-        line, col = self.locate(path)
-        return Problem(message, self.file, line, col, ".".join(str(p) for p in path), value)
+        line, col = self.locate(path, at_key)
+        return Problem(message, self.file, line, col, self.field_name(path), value)
+
+    def field_name(self, path: Sequence[str | int]) -> str:
+        """The dotted field path as the author wrote it (pydantic's union tags left out)."""
+        node = self.tree
+        parts: list[str] = []
+        for i, part in enumerate(path):
+            if isinstance(node, CommentedMap) and part in node:
+                node = node[part]
+            elif isinstance(node, CommentedSeq) and isinstance(part, int) and 0 <= part < len(node):
+                node = node[part]
+            elif isinstance(node, CommentedMap) and i + 1 < len(path):
+                continue  # a discriminator tag such as 'lamp' in components.3.lamp.rating
+            parts.append(str(part))
+        return ".".join(parts)
 
 
 def _pos(pair: Any) -> tuple[int, int]:
@@ -199,9 +222,13 @@ def validation_problems(exc: ValidationError, locator: Locator) -> list[Problem]
     problems = []
     for err in exc.errors(include_url=False):
         loc = tuple(err["loc"])
+        if err["type"] == "union_tag_invalid":
+            # point at the `type:` or `kind:` value itself
+            loc = loc + (str((err.get("ctx") or {}).get("discriminator", "")).strip("'\""),)
         message = _message(err)
-        name = ".".join(str(p) for p in loc)
-        problems.append(locator.problem(f"{name}: {message}" if name else message, loc, err.get("input")))
+        name = locator.field_name(loc)
+        problems.append(locator.problem(f"{name}: {message}" if name else message, loc, err.get("input"),
+                                        at_key=err["type"] == "extra_forbidden"))
     return problems
 
 
@@ -216,7 +243,8 @@ def _message(err: dict[str, Any]) -> str:
         msg = msg[len("Value error, "):]
     if kind == "union_tag_invalid":
         ctx = err.get("ctx") or {}
-        msg = f"unknown {ctx.get('discriminator', 'type')} {ctx.get('tag')!s}; expected one of {ctx.get('expected_tags')}"
+        kind = str(ctx.get("discriminator", "type")).strip("'\"")
+        msg = f"unknown {kind} '{ctx.get('tag')!s}'; expected one of {ctx.get('expected_tags')}"
     return msg
 
 
