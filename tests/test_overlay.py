@@ -79,7 +79,7 @@ def test_overlay_document_round_trips(ruleset: Path, tmp_path: Path) -> None:
     ("overlay: 1\nruleset: stop_lamps\nweights:\n  lamp_left.seized: 2\n", 4, "cannot have fault mode 'seized'"),
     ("overlay: 1\nruleset: stop_lamps\nweights:\n  lamp_left.filament_open: -2\n", 4, "greater than or equal to 0"),
     ("overlay: 1\nruleset: stop_lamps\nweights:\n  lamp_left: 2\n", 4, "String should match pattern"),
-    ("overlay: 1\nruleset: stop_lamps\nweight:\n  lamp_left.filament_open: 2\n", 4, "unknown field"),  # at its first entry
+    ("overlay: 1\nruleset: stop_lamps\nweight:\n  lamp_left.filament_open: 2\n", 3, "unknown field"),  # at the key
     ("overlay: 2\nruleset: stop_lamps\n", 1, "overlay"),
     ("overlay: 1\nruleset: stop_lamps\nweights:\n  f12.blown: 1\n  f12.blown: 2\n", 5, "duplicate key"),
     ("- just a list\n", 1, "an overlay is a YAML mapping"),
