@@ -186,13 +186,13 @@ def repairs_from_sessions(records: Iterable[SessionRecord]) -> tuple[Repair, ...
 
 
 def repairs_from_store(url: str | None) -> tuple[Repair, ...]:
-    """The confirmed repairs of the closed sessions in the session store at ``url``."""
+    """The confirmed repairs of the closed sessions in the session store at ``url`` (default store if None)."""
     try:
         from assistant import store as _store
     except ImportError as exc:
         raise StoreError("the session store is not part of this build; use --history FILE") from exc
-    db = _store.open_store(url)
-    records = (db.load(summary.id) for summary in db.list())
+    with _store.open_store(url) as db:
+        records = [db.load(summary.id) for summary in db.list() if summary.status == "closed"]
     return repairs_from_sessions(records)
 
 

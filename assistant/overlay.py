@@ -21,6 +21,7 @@ automatically (first); ``--overlay FILE`` adds more. Applying returns a new froz
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import logging
 from collections.abc import Mapping, Sequence
@@ -32,6 +33,8 @@ from pydantic import Field, ValidationError
 from ruamel.yaml.comments import CommentedMap
 
 from assistant.errors import RulesetError
+from assistant.predict import Hypothesis, PredictionTable
+from assistant.ruleset.defaults import fault_list
 from assistant.ruleset.lint import allowed_modes
 from assistant.ruleset.load import Locator, parse_yaml, read_text, to_plain, validation_problems
 from assistant.ruleset.model import FaultId, FaultSpec, Frozen, Identifier, Ruleset
@@ -151,6 +154,31 @@ def apply_overlays(ruleset: Ruleset, overlays: Sequence[LoadedOverlay],
     for loaded in overlays:
         ruleset = apply_overlay(ruleset, loaded, ruleset_sha256)
     return ruleset
+
+
+def apply_priors(table: PredictionTable, ruleset: Ruleset) -> PredictionTable:
+    """The table with its hypothesis priors recomputed from the (overlaid) ruleset's weights.
+
+    The samples do not depend on the weights, so a table predicted (or cached) for the ruleset
+    without its overlays is made right for it here: "none" and each fault get weight / total,
+    a pair "a+b" the product of its two priors, and a fault switched off gets 0.
+    """
+    weights = {f.id: f.weight for f in fault_list(ruleset)}
+    total = ruleset.none_weight + sum(weights.values())
+    if total <= 0:
+        raise RulesetError(f"ruleset '{ruleset.id}' has no positive prior weight left")
+    single = {"none": ruleset.none_weight / total, **{k: w / total for k, w in weights.items()}}
+
+    def prior(h: Hypothesis) -> float:
+        if not h.faults:
+            return single["none"]
+        value = 1.0
+        for fault in h.faults:
+            value *= single.get(fault, 0.0)
+        return value
+
+    hypotheses = tuple(dataclasses.replace(h, prior=prior(h)) for h in table.hypotheses)
+    return dataclasses.replace(table, hypotheses=hypotheses)
 
 
 def overlay_document(ruleset: Ruleset, weights: Mapping[str, float], *, ruleset_sha256: str | None = None,

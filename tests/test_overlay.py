@@ -107,3 +107,23 @@ def test_lint_skips_overlay_files_but_checks_the_overlay_in_force(ruleset: Path)
     result = lint_paths([ruleset.parent])
     assert result.files == 1  # the overlay is not taken for a ruleset
     assert len(result.problems) == 1 and "unknown component 'nothing_here'" in result.problems[0].message
+
+
+def test_apply_priors_recomputes_the_table_priors(ruleset: Path, tmp_path: Path) -> None:
+    import numpy as np
+
+    from assistant.overlay import apply_priors
+    from assistant.predict import Hypothesis, PredictionTable
+
+    ov = _write(tmp_path / "a.yaml", "overlay: 1\nruleset: stop_lamps\nnone_weight: 1\n"
+                "weights:\n  f12.blown: 5\n  c40.open: 0\n")
+    loaded = load_ruleset(ruleset, [ov])
+    hyps = (Hypothesis("none", (), 0.1, "", 0.0), Hypothesis("f12.blown", ("f12.blown",), 0.1, "", 5.0),
+            Hypothesis("c40.open", ("c40.open",), 0.1, "", 5.0),
+            Hypothesis("f12.blown+g_rear.open", ("f12.blown", "g_rear.open"), 0.01, "", 10.0))
+    empty = np.zeros((4, 0, 1))
+    table = PredictionTable("stop_lamps", loaded.sha256, hyps, (), empty, empty, empty)
+    total = 1 + sum(f.weight for f in fault_list(loaded.ruleset))
+    priors = [h.prior for h in apply_priors(table, loaded.ruleset).hypotheses]
+    assert priors == pytest.approx([1 / total, 5 / total, 0.0, 5 / total * 0.5 / total])
+    assert [h.prior for h in table.hypotheses] == [0.1, 0.1, 0.1, 0.01]  # the given table is unchanged
