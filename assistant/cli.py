@@ -15,16 +15,21 @@ from pathlib import Path
 
 from assistant import __version__
 from assistant.errors import LocatedError, OhmtrailError, OutputError
+from assistant.export import export_json, read_export, verify_export
 from assistant.history import HEADER as HISTORY_HEADER
 from assistant.history import Repair, default_ruleset_roots, known_ruleset_ids, read_history, repairs_from_store
 from assistant.learn import learn
 from assistant.netgraph import FORMATS as GRAPH_FORMATS
 from assistant.netgraph import circuit_graph, render_graph
 from assistant.overlay import beside_path, overlay_document
+from assistant.record import SessionRecord
+from assistant.report import output_stem, render_report, write_output
+from assistant.ruleset import lint_paths
+from assistant.ruleset.lint import check_ruleset, summary
+from assistant.ruleset.load import LoadedRuleset, load_ruleset
 from assistant.scaffold import FAMILIES, write_scaffold
-from assistant.ruleset import LoadedRuleset, lint_paths, load_ruleset
-from assistant.ruleset.lint import summary
 from assistant.ruleset.model import Ruleset
+from assistant.trail import render_trail
 
 log = logging.getLogger("ohmtrail.cli")
 
@@ -62,7 +67,6 @@ def _positive_float(text: str) -> float:
 # --------------------------------------------------------------------------- commands
 
 
-
 def _cmd_lint(args: argparse.Namespace) -> int:
     result = lint_paths(args.paths)
     for problem in result.problems:
@@ -77,6 +81,106 @@ def _cmd_schema(args: argparse.Namespace) -> int:
     schema["title"] = "ohmtrail ruleset, format 1"
     print(json.dumps(schema, indent=2, sort_keys=False))
     return 0
+
+
+def _load_checked(path: str) -> LoadedRuleset:
+    return check_ruleset(load_ruleset(path))
+
+
+def _cmd_predict(args: argparse.Namespace) -> int:
+    from assistant.meter import load_meter_profile
+    from assistant.predict import predict, prediction_json, prediction_text
+
+    loaded = _load_checked(args.ruleset)
+    meter = load_meter_profile(args.meter) if args.meter else None
+    table = predict(loaded, meter, samples=args.samples, seed=args.seed, cache=not args.no_cache)
+    if args.json:
+        print(json.dumps(prediction_json(table, args.fault), indent=2))
+    else:
+        print(prediction_text(table, args.fault))
+    return 0
+
+
+def _cmd_spice(args: argparse.Namespace) -> int:
+    from assistant.spice import spice_deck
+
+    loaded = _load_checked(args.ruleset)
+    deck = spice_deck(loaded.ruleset, (args.fault or "none",), args.state)
+    if args.output:
+        try:
+            with open(args.output, "w", encoding="utf-8") as fh:
+                fh.write(deck.text)
+        except OSError as exc:
+            raise OutputError(f"{args.output}: cannot be written: {exc.strerror or exc}") from exc
+        print(f"wrote {args.output}: state '{deck.state}', {args.fault or 'no fault'}; run: ngspice -b {args.output}")
+    else:
+        sys.stdout.write(deck.text)
+    return 0
+
+
+def _load_session(args: argparse.Namespace) -> SessionRecord:
+    from assistant.store import open_store
+
+    return open_store(args.db).load(args.session_id)
+
+
+def _emit(data: bytes, output: str | None, default_name: str) -> None:
+    """Write to ``-o FILE`` (``-`` for stdout) or to ``default_name`` here, and say where."""
+    if output == "-":
+        sys.stdout.buffer.write(data)
+        sys.stdout.flush()
+        return
+    path = write_output(Path(output or default_name), data)
+    print(path)
+
+
+def _cmd_trail(args: argparse.Namespace) -> int:
+    record = _load_session(args)
+    drawing = render_trail(record, args.format)
+    output = args.output
+    if drawing.hint and output not in (None, "-"):
+        output = str(Path(output).with_suffix(".dot"))
+    _emit(drawing.data, output, f"{output_stem(record.id)}-trail.{drawing.format}")
+    if drawing.hint:
+        print(f"ohmtrail: {drawing.hint}", file=sys.stderr)
+        return 1
+    return 0
+
+
+def _cmd_report(args: argparse.Namespace) -> int:
+    record = _load_session(args)
+    _emit(render_report(record, args.format), args.output,
+          f"{output_stem(record.id)}-report.{args.format}")
+    return 0
+
+
+def _cmd_export(args: argparse.Namespace) -> int:
+    record = _load_session(args)
+    _emit(export_json(record).encode("utf-8"), args.output,
+          f"{output_stem(record.id)}-export.json")
+    return 0
+
+
+def _cmd_verify(args: argparse.Namespace) -> int:
+    result = verify_export(read_export(Path(args.file)))
+    if result.intact:
+        print(f"{args.file}: {result.message}")
+        return 0
+    place = f"{result.place}: " if result.place else ""
+    print(f"{args.file}: {place}{result.message}", file=sys.stderr)
+    return 1
+
+
+def _add_session_command(sub: argparse._SubParsersAction[argparse.ArgumentParser], name: str,
+                         help_text: str, description: str) -> argparse.ArgumentParser:
+    p = sub.add_parser(name, help=help_text, description=description)
+    p.add_argument("session_id", metavar="ID", help="the session id")
+    p.add_argument("-o", "--output", metavar="FILE",
+                   help="where to write ('-' for standard output; default: a file named after "
+                   "the session in the current folder)")
+    p.add_argument("--db", metavar="URL", help="session store URL (default: $OHMTRAIL_DB or the "
+                   "SQLite store in the user data folder)")
+    return p
 
 
 def _cmd_learn(args: argparse.Namespace) -> int:
@@ -160,6 +264,59 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Print the JSON Schema of ruleset format 1, for editor completion.")
     p.set_defaults(handler=_cmd_schema)
 
+    p = sub.add_parser("predict", help="predicted meter readings of every test under every fault",
+                       description="Compute what the meter should read at every test of a ruleset under "
+                       "every fault (and with no fault), by Monte Carlo over tolerances and fault "
+                       "magnitudes through the meter model. Results are cached by the ruleset's content.")
+    p.add_argument("ruleset", metavar="RULESET", help="a ruleset file")
+    p.add_argument("--fault", metavar="ID", help="show only this fault (and 'none'), with ranges")
+    p.add_argument("--json", action="store_true", help="print JSON: ruleset, faults, tests, predictions")
+    p.add_argument("--meter", metavar="FILE", help="a meter profile (default: the bundled 2000-count handheld)")
+    p.add_argument("--samples", type=int, default=64, metavar="N", help="samples per hypothesis (default 64)")
+    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--no-cache", action="store_true", help="compute afresh; neither read nor write the cache")
+    p.set_defaults(handler=_cmd_predict)
+
+    p = sub.add_parser("spice", help="write a SPICE deck of the circuit as modelled",
+                       description="Write a SPICE deck of the ruleset's circuit at nominal values in one "
+                       "operating state, with a fault injected (magnitude at the middle of its range), "
+                       "relays, fuses and motors settled. Check it with: ngspice -b FILE")
+    p.add_argument("ruleset", metavar="RULESET", help="a ruleset file")
+    p.add_argument("--fault", metavar="ID", help="inject this fault (default: none)")
+    p.add_argument("--state", metavar="S", help="operating state (default: the ruleset's first)")
+    p.add_argument("-o", "--output", metavar="FILE", help="write to FILE instead of standard output")
+    p.set_defaults(handler=_cmd_spice)
+    p = _add_session_command(
+        sub, "trail", "draw a session's decision trail",
+        "Draw the path a session took (complaint, each test with its reading against the healthy "
+        "range and the leading suspects, skipped and re-measured tests, rules fired, conclusion, "
+        "repair, verification) with graphviz. Without graphviz's dot program the DOT source is "
+        "written instead, with a hint, and the exit status is 1.")
+    p.add_argument("--format", choices=("svg", "pdf", "png", "dot"), default="svg",
+                   help="drawing format (default: svg)")
+    p.set_defaults(handler=_cmd_trail)
+
+    p = _add_session_command(
+        sub, "report", "write a session's claim report",
+        "Write the printable claim report of a session: vehicle, complaint, technician, meter, "
+        "ruleset and its hash, every step, the diagnosis and alternatives, repair, verification, "
+        "the trail, the cautions and the session digest. An open session is marked in progress.")
+    p.add_argument("--format", choices=("pdf", "html"), default="pdf",
+                   help="report format (default: pdf)")
+    p.set_defaults(handler=_cmd_report)
+
+    p = _add_session_command(
+        sub, "export", "export a session as sealed JSON",
+        "Write a session as JSON (export format 1, docs/export-format.md) with its hash chain and "
+        "session digest, for `ohmtrail verify`.")
+    p.set_defaults(handler=_cmd_export)
+
+    p = sub.add_parser("verify", help="check an exported session's hash chain",
+                       description="Recompute the hash chain and the session digest of an "
+                       "exported session. Prints 'intact' and exits 0, or names the first step "
+                       "or field that differs and exits 1.")
+    p.add_argument("file", metavar="FILE", help="a JSON file written by `ohmtrail export`")
+    p.set_defaults(handler=_cmd_verify)
     p = sub.add_parser("learn", help="tune a ruleset's fault weights from the fleet's repair history",
                        description="Count confirmed repairs (a history CSV, and/or the store's closed "
                        "sessions) and write a priors overlay: the ruleset's fault weights updated by "
