@@ -118,9 +118,9 @@ def expected_gain(p: np.ndarray, outcomes: TestOutcomes, alive: np.ndarray | Non
     probs = outcomes.probs[idx]
     logs = outcomes.log2probs[idx]
     pk = q @ probs
-    with np.errstate(divide="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore"):  # 0 log 0 = 0 in noise-free models
         log_pk = np.log2(pk)
-    terms = np.where(probs > 0, probs * (logs - log_pk[None, :]), 0.0)
+        terms = np.where(probs > 0, probs * (logs - log_pk[None, :]), 0.0)
     return max(0.0, float(q @ terms.sum(axis=1)))
 
 
