@@ -11,13 +11,18 @@ import json
 import logging
 import sys
 from collections.abc import Callable, Sequence
+from pathlib import Path
 
 from assistant import __version__
 from assistant.errors import LocatedError, OhmtrailError, OutputError
+from assistant.export import export_json, read_export, verify_export
+from assistant.record import SessionRecord
+from assistant.report import output_stem, render_report, write_output
 from assistant.ruleset import lint_paths
 from assistant.ruleset.lint import check_ruleset, summary
 from assistant.ruleset.load import LoadedRuleset, load_ruleset
 from assistant.ruleset.model import Ruleset
+from assistant.trail import render_trail
 
 log = logging.getLogger("ohmtrail.cli")
 
@@ -111,6 +116,71 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     return 0
 
 
+def _load_session(args: argparse.Namespace) -> SessionRecord:
+    from assistant.store import open_store
+
+    return open_store(args.db).load(args.session_id)
+
+
+def _emit(data: bytes, output: str | None, default_name: str) -> None:
+    """Write to ``-o FILE`` (``-`` for stdout) or to ``default_name`` here, and say where."""
+    if output == "-":
+        sys.stdout.buffer.write(data)
+        sys.stdout.flush()
+        return
+    path = write_output(Path(output or default_name), data)
+    print(path)
+
+
+def _cmd_trail(args: argparse.Namespace) -> int:
+    record = _load_session(args)
+    drawing = render_trail(record, args.format)
+    output = args.output
+    if drawing.hint and output not in (None, "-"):
+        output = str(Path(output).with_suffix(".dot"))
+    _emit(drawing.data, output, f"{output_stem(record.id)}-trail.{drawing.format}")
+    if drawing.hint:
+        print(f"ohmtrail: {drawing.hint}", file=sys.stderr)
+        return 1
+    return 0
+
+
+def _cmd_report(args: argparse.Namespace) -> int:
+    record = _load_session(args)
+    _emit(render_report(record, args.format), args.output,
+          f"{output_stem(record.id)}-report.{args.format}")
+    return 0
+
+
+def _cmd_export(args: argparse.Namespace) -> int:
+    record = _load_session(args)
+    _emit(export_json(record).encode("utf-8"), args.output,
+          f"{output_stem(record.id)}-export.json")
+    return 0
+
+
+def _cmd_verify(args: argparse.Namespace) -> int:
+    result = verify_export(read_export(Path(args.file)))
+    if result.intact:
+        print(f"{args.file}: {result.message}")
+        return 0
+    place = f"{result.place}: " if result.place else ""
+    print(f"{args.file}: {place}{result.message}", file=sys.stderr)
+    return 1
+
+
+def _add_session_command(sub: argparse._SubParsersAction[argparse.ArgumentParser], name: str,
+                         help_text: str, description: str) -> argparse.ArgumentParser:
+    p = sub.add_parser(name, help=help_text, description=description)
+    p.add_argument("session_id", metavar="ID", help="the session id")
+    p.add_argument("-o", "--output", metavar="FILE",
+                   help="where to write ('-' for standard output; default: a file named after "
+                   "the session in the current folder)")
+    p.add_argument("--db", metavar="URL", help="session store URL (default: $OHMTRAIL_DB or the "
+                   "SQLite store in the user data folder)")
+    return p
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser with every subcommand."""
     parser = argparse.ArgumentParser(
@@ -167,6 +237,38 @@ def build_parser() -> argparse.ArgumentParser:
                    help="stop when a fault reaches P (default: the ruleset's threshold)")
     p.add_argument("--json", action="store_true", help="print the figures as JSON")
     p.set_defaults(handler=_cmd_simulate)
+
+    p = _add_session_command(
+        sub, "trail", "draw a session's decision trail",
+        "Draw the path a session took (complaint, each test with its reading against the healthy "
+        "range and the leading suspects, skipped and re-measured tests, rules fired, conclusion, "
+        "repair, verification) with graphviz. Without graphviz's dot program the DOT source is "
+        "written instead, with a hint, and the exit status is 1.")
+    p.add_argument("--format", choices=("svg", "pdf", "png", "dot"), default="svg",
+                   help="drawing format (default: svg)")
+    p.set_defaults(handler=_cmd_trail)
+
+    p = _add_session_command(
+        sub, "report", "write a session's claim report",
+        "Write the printable claim report of a session: vehicle, complaint, technician, meter, "
+        "ruleset and its hash, every step, the diagnosis and alternatives, repair, verification, "
+        "the trail, the cautions and the session digest. An open session is marked in progress.")
+    p.add_argument("--format", choices=("pdf", "html"), default="pdf",
+                   help="report format (default: pdf)")
+    p.set_defaults(handler=_cmd_report)
+
+    p = _add_session_command(
+        sub, "export", "export a session as sealed JSON",
+        "Write a session as JSON (export format 1, docs/export-format.md) with its hash chain and "
+        "session digest, for `ohmtrail verify`.")
+    p.set_defaults(handler=_cmd_export)
+
+    p = sub.add_parser("verify", help="check an exported session's hash chain",
+                       description="Recompute the hash chain and the session digest of an "
+                       "exported session. Prints 'intact' and exits 0, or names the first step "
+                       "or field that differs and exits 1.")
+    p.add_argument("file", metavar="FILE", help="a JSON file written by `ohmtrail export`")
+    p.set_defaults(handler=_cmd_verify)
     return parser
 
 
