@@ -41,10 +41,11 @@ OPTIMUM_SECONDS = 60.0
 
 
 def draw_reading(table: PredictionTable, hypothesis_index: int, test_index: int,
-                 rng: np.random.Generator) -> Reading:
+                 rng: np.random.Generator, *, sample: int | None = None) -> Reading:
     """A reading as the meter would show it if the hypothesis were true.
 
-    A random Monte Carlo sample, plus the meter's error (uniform within its accuracy bound,
+    A random Monte Carlo sample (or ``sample``: the same one for every test of one simulated
+    vehicle, so that one fault magnitude shows in all its readings), plus the meter's error (uniform within its accuracy bound,
     sqrt(3) standard uncertainties either side: JCGM 100:2008), quantised to the resolution of
     the range in use; OL for an overload. Observations are drawn from their outcome row.
     """
@@ -56,7 +57,7 @@ def draw_reading(table: PredictionTable, hypothesis_index: int, test_index: int,
         probs = probs / probs.sum() if probs.sum() > 0 else np.full(k, 1.0 / k)
         outcome = info.outcomes[int(rng.choice(k, p=probs))]
         return Reading(outcome, outcome=outcome)
-    s = int(rng.integers(table.samples.shape[2]))
+    s = int(rng.integers(table.samples.shape[2])) if sample is None else sample
     x = float(table.samples[hypothesis_index, test_index, s])
     if math.isinf(x) or math.isnan(x):
         return Reading("-OL" if x < 0 else "OL", overload=True)
@@ -175,7 +176,8 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
     total_runs, done = len(live) * trials, 0
     for h in live:
         for _ in range(trials):
-            draws = {t: draw_reading(table, h, t, rng) for t in range(n_t)}
+            world = int(rng.integers(table.samples.shape[2]))  # one vehicle: one set of part values
+            draws = {t: draw_reading(table, h, t, rng, sample=world) for t in range(n_t)}
             read = walk_readings(draws)
             conclusion, n_tests, minutes = run_planner(start, read)
             named = table.hypothesis_index(_named(conclusion))
