@@ -82,9 +82,8 @@ def test_optimum_gives_up_past_its_time_limit() -> None:
 
 def _stop_lamp_table():  # type: ignore[no-untyped-def]
     infos = infos_of(STOP_LAMPS)
-    default = {t.id: (12.4, 0.05) for t in infos if t.kind == "voltage"}
-    default.update({t.id: (0.05, 0.01) for t in infos if t.kind == "drop"})
-    default.update({"r_left_lamp": (0.6, 0.05), "i_left": (1.7, 0.02), "look_fuse": {"yes": 0.01, "no": 0.99}})
+    typical = {"voltage": (12.4, 0.05), "drop": (0.05, 0.01), "resistance": (0.6, 0.05), "current": (1.7, 0.02)}
+    default = {t.id: typical[t.kind] for t in infos if t.kind in typical}
     return build_table(hypotheses_of(STOP_LAMPS), infos, {}, default=default)
 
 
