@@ -263,7 +263,7 @@ def report_pdf(record: SessionRecord, names: Mapping[str, str] | None = None) ->
     drawing = render_trail(record, "png", names)
     return pdf_from_content(report_content(record, names),
                             drawing.data if drawing.format == "png" else None,
-                            drawing.hint)
+                            drawing.hint, drawing.node_spans)
 
 
 def render_report(record: SessionRecord, fmt: str = "pdf",

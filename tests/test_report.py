@@ -198,20 +198,36 @@ def test_without_dot_the_report_says_why_the_drawing_is_missing(
 
 
 @needs_dot
-def test_a_long_trail_is_cut_into_page_high_slices() -> None:
+def test_a_long_trail_is_cut_between_nodes_into_page_high_slices() -> None:
     from reportlab.platypus import Image
 
-    from assistant.report_pdf import FRAME_HEIGHT, FRAME_WIDTH, _trail_slices
+    from assistant.report_pdf import FRAME_HEIGHT, FRAME_WIDTH, _cut_rows, _trail_slices
     from assistant.trail import render_trail
 
     record = load_session()
     steps = [record.steps[0]] + [s.model_copy(update={"index": i})
                                  for i, s in enumerate(list(record.steps[2:11]) * 4, start=1)]
     long = record.model_copy(update={"steps": tuple(steps), "status": "open"})
-    slices = _trail_slices(render_trail(long, "png").data)
+    drawing = render_trail(long, "png")
+    assert drawing.node_spans  # one span per node, as fractions of the picture's height
+    assert all(0.0 <= a < b <= 1.0 for a, b in drawing.node_spans)
+    slices = _trail_slices(drawing.data, drawing.node_spans)
     assert len(slices) >= 2
     assert all(isinstance(s, Image) and s.drawHeight <= FRAME_HEIGHT for s in slices)
     assert all(s.drawWidth <= FRAME_WIDTH + 0.01 for s in slices)
+    height = 10_000
+    for cut in _cut_rows(height, drawing.node_spans, 2_000):
+        assert not any(a * height <= cut <= b * height for a, b in drawing.node_spans)
+
+
+def test_cut_rows_fall_between_spans_and_respect_the_limit() -> None:
+    from assistant.report_pdf import _cut_rows
+
+    spans = [(0.0, 0.18), (0.2, 0.38), (0.4, 0.58), (0.6, 0.78), (0.8, 1.0)]
+    cuts = _cut_rows(1000, spans, 300)
+    assert cuts == [196, 396, 596, 796]  # the lowest free row under each limit (3 rows clear)
+    assert _cut_rows(1000, [], 300) == [300, 600, 900]  # no spans known: cut at the limit
+    assert _cut_rows(200, spans, 300) == []
 
 
 def test_an_unknown_report_format_is_a_clear_error() -> None:
