@@ -14,12 +14,13 @@ from collections.abc import Callable, Sequence
 from pathlib import Path
 
 from assistant import __version__
-from assistant.errors import LocatedError, OhmtrailError
+from assistant.errors import LocatedError, OhmtrailError, OutputError
 from assistant.export import export_json, read_export, verify_export
 from assistant.record import SessionRecord
 from assistant.report import output_stem, render_report, write_output
 from assistant.ruleset import lint_paths
-from assistant.ruleset.lint import summary
+from assistant.ruleset.lint import check_ruleset, summary
+from assistant.ruleset.load import LoadedRuleset, load_ruleset
 from assistant.ruleset.model import Ruleset
 from assistant.trail import render_trail
 
@@ -41,6 +42,41 @@ def _cmd_schema(args: argparse.Namespace) -> int:
     schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
     schema["title"] = "ohmtrail ruleset, format 1"
     print(json.dumps(schema, indent=2, sort_keys=False))
+    return 0
+
+
+def _load_checked(path: str) -> LoadedRuleset:
+    return check_ruleset(load_ruleset(path))
+
+
+def _cmd_predict(args: argparse.Namespace) -> int:
+    from assistant.meter import load_meter_profile
+    from assistant.predict import predict, prediction_json, prediction_text
+
+    loaded = _load_checked(args.ruleset)
+    meter = load_meter_profile(args.meter) if args.meter else None
+    table = predict(loaded, meter, samples=args.samples, seed=args.seed, cache=not args.no_cache)
+    if args.json:
+        print(json.dumps(prediction_json(table, args.fault), indent=2))
+    else:
+        print(prediction_text(table, args.fault))
+    return 0
+
+
+def _cmd_spice(args: argparse.Namespace) -> int:
+    from assistant.spice import spice_deck
+
+    loaded = _load_checked(args.ruleset)
+    deck = spice_deck(loaded.ruleset, (args.fault or "none",), args.state)
+    if args.output:
+        try:
+            with open(args.output, "w", encoding="utf-8") as fh:
+                fh.write(deck.text)
+        except OSError as exc:
+            raise OutputError(f"{args.output}: cannot be written: {exc.strerror or exc}") from exc
+        print(f"wrote {args.output}: state '{deck.state}', {args.fault or 'no fault'}; run: ngspice -b {args.output}")
+    else:
+        sys.stdout.write(deck.text)
     return 0
 
 
@@ -130,6 +166,28 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Print the JSON Schema of ruleset format 1, for editor completion.")
     p.set_defaults(handler=_cmd_schema)
 
+    p = sub.add_parser("predict", help="predicted meter readings of every test under every fault",
+                       description="Compute what the meter should read at every test of a ruleset under "
+                       "every fault (and with no fault), by Monte Carlo over tolerances and fault "
+                       "magnitudes through the meter model. Results are cached by the ruleset's content.")
+    p.add_argument("ruleset", metavar="RULESET", help="a ruleset file")
+    p.add_argument("--fault", metavar="ID", help="show only this fault (and 'none'), with ranges")
+    p.add_argument("--json", action="store_true", help="print JSON: ruleset, faults, tests, predictions")
+    p.add_argument("--meter", metavar="FILE", help="a meter profile (default: the bundled 2000-count handheld)")
+    p.add_argument("--samples", type=int, default=64, metavar="N", help="samples per hypothesis (default 64)")
+    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--no-cache", action="store_true", help="compute afresh; neither read nor write the cache")
+    p.set_defaults(handler=_cmd_predict)
+
+    p = sub.add_parser("spice", help="write a SPICE deck of the circuit as modelled",
+                       description="Write a SPICE deck of the ruleset's circuit at nominal values in one "
+                       "operating state, with a fault injected (magnitude at the middle of its range), "
+                       "relays, fuses and motors settled. Check it with: ngspice -b FILE")
+    p.add_argument("ruleset", metavar="RULESET", help="a ruleset file")
+    p.add_argument("--fault", metavar="ID", help="inject this fault (default: none)")
+    p.add_argument("--state", metavar="S", help="operating state (default: the ruleset's first)")
+    p.add_argument("-o", "--output", metavar="FILE", help="write to FILE instead of standard output")
+    p.set_defaults(handler=_cmd_spice)
     p = _add_session_command(
         sub, "trail", "draw a session's decision trail",
         "Draw the path a session took (complaint, each test with its reading against the healthy "
