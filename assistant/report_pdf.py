@@ -176,6 +176,8 @@ def pdf_from_content(content: ReportContent, trail_png: bytes | None,
     prob = f" ({content.diagnosis_probability})" if content.diagnosis_probability else ""
     block: list[Flowable] = [Paragraph("Diagnosis", st["h2"]),
                              Paragraph(_p(content.diagnosis + prob), st["diagnosis"])]
+    if content.diagnosis_id:
+        block.append(Paragraph(_p("Fault id: " + content.diagnosis_id), st["body"]))
     if content.stopped_because:
         block.append(Paragraph(_p("Stopped because: " + content.stopped_because), st["body"]))
     if content.alternatives:

@@ -100,7 +100,7 @@ def _suspects(top: tuple[tuple[str, float], ...], names: Mapping[str, str]) -> s
         return ""
     parts = [f"{_name(h, names)}\xa0{_nbsp(format_probability(p))}" for h, p in top[:3]]
     return ('<FONT POINT-SIZE="9">leading: '
-            + html_text("; ".join(parts), MAIN_WIDTH - 9) + "</FONT>")
+            + html_text("\n".join(parts), MAIN_WIDTH - 9) + "</FONT>")
 
 
 def _reading_rows(step: Step, names: Mapping[str, str], *, struck: bool) -> list[str]:
@@ -218,8 +218,8 @@ def _conclusion_rows(step: Step, record: SessionRecord, names: Mapping[str, str]
                           + "</FONT>", colspan=3))
     others = record.alternatives or (ranking[1:] if ranking else ())
     if others:
-        parts = "; ".join(f"{_name(h, names)}\xa0{_nbsp(format_probability(p))}"
-                          for h, p in others[:3])
+        parts = "\n".join(f"{_name(h, names)}\xa0{_nbsp(format_probability(p))}"
+                           for h, p in others[:3])
         rows.append(_cell('<FONT POINT-SIZE="9">alternatives: ' + html_text(parts, MAIN_WIDTH - 14)
                           + "</FONT>", colspan=3))
     return rows

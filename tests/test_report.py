@@ -233,3 +233,36 @@ def test_cut_rows_fall_between_spans_and_respect_the_limit() -> None:
 def test_an_unknown_report_format_is_a_clear_error() -> None:
     with pytest.raises(OutputError, match="unknown report format"):
         render_report(load_session(), "docx")
+
+
+STOP_LAMPS = Path(__file__).parent.parent / "rulesets" / "lamp" / "stop_lamps.yaml"
+needs_ruleset_path = pytest.mark.skipif("ruleset_path" not in SessionRecord.model_fields,
+                                        reason="the record has no ruleset_path field yet")
+
+
+def test_ruleset_names_cover_every_test_and_fault() -> None:
+    from assistant.display import ruleset_names
+    from assistant.ruleset import fault_list, load_ruleset
+
+    ruleset = load_ruleset(STOP_LAMPS).ruleset
+    names = ruleset_names(ruleset)
+    assert set(names) == {"none"} | {f.id for f in fault_list(ruleset)} | {t.id for t in ruleset.tests}
+    assert names["w_left_gnd.high_resistance"] == "left lamp ground wire, black: high resistance"
+    assert names["drop_left_ground"] == "Voltage drop on the left lamp's ground side"
+
+
+@needs_ruleset_path
+def test_the_report_names_tests_and_faults_from_the_unchanged_ruleset(tmp_path: Path) -> None:
+    from assistant.report import session_names
+
+    record = load_session().model_copy(update={"ruleset_path": str(STOP_LAMPS)})
+    names = session_names(record)
+    page = report_html(record, names)
+    assert "left lamp ground wire, black: high resistance (98.1 %)" in page
+    assert "Fault id: <code>w_left_gnd.high_resistance</code>" in page
+    assert "reading: Voltage drop on the left lamp&#x27;s ground side" in page
+    # a ruleset file that changed since the session, or is gone, gives ids instead
+    changed = tmp_path / "stop_lamps.yaml"
+    changed.write_text(STOP_LAMPS.read_text("utf-8") + "\n# edited\n", encoding="utf-8")
+    assert session_names(record.model_copy(update={"ruleset_path": str(changed)})) == {}
+    assert session_names(record.model_copy(update={"ruleset_path": str(tmp_path / "no")})) == {}
