@@ -208,7 +208,8 @@ def _conclusion_rows(step: Step, record: SessionRecord, names: Mapping[str, str]
         verdict = (f"<B>{html_text(_name(record.diagnosis, names))}</B>  "
                    f"{format_probability(record.probability)}")
     elif best is not None:
-        verdict = (f"<B>{html_text(_name(best[0], names))}</B>  {format_probability(best[1])}")
+        verdict = (f"<B>no fault certain enough</B>; most likely "
+                   f"{html_text(_name(best[0], names))}\xa0{_nbsp(format_probability(best[1]))}")
     else:
         verdict = "<B>no diagnosis certain enough</B>"
     rows = [_head(step, "Conclusion"), _cell(verdict, colspan=3)]
@@ -277,10 +278,11 @@ def trail_graph(record: SessionRecord, names: Mapping[str, str] | None = None) -
                 and step.index not in undone:
             last_reading[step.test_id] = name
         spine_prev = name
-    if record.status == "open":
-        graph.node("open", _table([_cell("<B>in progress</B>: the session is still open",
-                                         colspan=3)], color=_GREY, dashed=True))
-        graph.edge(spine_prev, "open", style="dashed")
+    ending = {"open": "<B>in progress</B>: the session is still open",
+              "abandoned": "<B>abandoned</B> before a conclusion"}.get(record.status)
+    if ending:
+        graph.node("end", _table([_cell(ending, colspan=3)], color=_GREY, dashed=True))
+        graph.edge(spine_prev, "end", style="dashed")
     return graph
 
 
