@@ -23,7 +23,7 @@ from assistant.netgraph import FORMATS as GRAPH_FORMATS
 from assistant.netgraph import circuit_graph, render_graph
 from assistant.overlay import beside_path, overlay_document
 from assistant.record import SessionRecord
-from assistant.report import output_stem, render_report, write_output
+from assistant.report import output_stem, render_report, session_names, write_output
 from assistant.ruleset import lint_paths
 from assistant.ruleset.lint import check_ruleset, summary
 from assistant.ruleset.load import LoadedRuleset, load_ruleset
@@ -172,7 +172,7 @@ def _emit(data: bytes, output: str | None, default_name: str) -> None:
 
 def _cmd_trail(args: argparse.Namespace) -> int:
     record = _load_session(args)
-    drawing = render_trail(record, args.format)
+    drawing = render_trail(record, args.format, session_names(record))
     output = args.output
     if drawing.hint and output not in (None, "-"):
         output = str(Path(output).with_suffix(".dot"))
@@ -185,7 +185,7 @@ def _cmd_trail(args: argparse.Namespace) -> int:
 
 def _cmd_report(args: argparse.Namespace) -> int:
     record = _load_session(args)
-    _emit(render_report(record, args.format), args.output,
+    _emit(render_report(record, args.format, session_names(record)), args.output,
           f"{output_stem(record.id)}-report.{args.format}")
     return 0
 
