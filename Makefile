@@ -20,6 +20,7 @@ tools:
 
 test: $(STAMP) tools
 	$(BIN)/python -m pytest
+	$(BIN)/ohmtrail check rulesets/
 
 demo: $(STAMP) tools
 	$(BIN)/ohmtrail lint rulesets/

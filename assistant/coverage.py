@@ -10,7 +10,9 @@ For an author deciding which tests to add or drop:
   test tells apart are joined, and the groups are the connected sets of that relation.
 - **expected minutes to isolate** each fault: the mean cost of the tests the diagnosis engine
   asks before it concludes, over ``runs`` simulated diagnoses with readings drawn under that
-  fault (``assistant.simulate.draw_reading``), and how often it concluded that very fault;
+  fault (``assistant.simulate.draw_reading``), each started from the first complaint that leads
+  to the fault (none for "none" or a fault no complaint leads to), and how often it concluded
+  that very fault;
 - **tests that never change any decision**: tests that tell no two hypotheses apart, and tests
   the engine never chose in any of the simulated diagnoses (candidates to drop);
 - **faults no complaint leads to**, and **the operating states the tests need**.
@@ -237,10 +239,12 @@ def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, se
     for h, hyp in enumerate(table.hypotheses):
         minutes: float | None = None
         right: float | None = None
-        if runs > 0 and hyp.prior > 0:
-            minutes, right, asked = isolation_minutes(loaded, table, h, runs, rng, draw)
-            chosen |= asked
         complaints = () if hyp.id == "none" else _complaints_leading_to(rs, hyp.id)
+        if runs > 0 and hyp.prior > 0:
+            # the technician starts from a complaint: the first that leads to this fault
+            context = Context(complaint=complaints[0]) if complaints else Context()
+            minutes, right, asked = isolation_minutes(loaded, table, h, runs, rng, draw, context)
+            chosen |= asked
         faults.append(FaultCoverage(hyp.id, hyp.prior, group_of.get(hyp.id), partners.get(hyp.id, ()),
                                     minutes, right, complaints))
     never = tuple(t.id for t in table.tests if runs > 0 and t.id not in chosen and t.id not in useless)
@@ -249,3 +253,39 @@ def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, se
     log.info("%s: %d groups, %d tests separate nothing, %d never chosen", rs.id, len(groups), len(useless), len(never))
     return Coverage(rs.id, rs.version, loaded.sha256, loaded.overlays, runs, seed, separation, tuple(faults),
                     groups, useless, never, without, states, tuple(t.id for t in rs.tests if t.state is None))
+
+
+def coverage_text(report: Coverage) -> str:
+    """The human view of a coverage report: a table per hypothesis, then the lists."""
+    lines = [f"{report.ruleset_id} {report.version}: {len(report.faults)} hypotheses"
+             + (f", {report.runs} simulated diagnoses each" if report.runs else ", no simulation")]
+    lines.extend(f"overlay: {o}" for o in report.overlays)
+    width = max([len("hypothesis")] + [len(f.id) for f in report.faults])
+    lines.append(f"{'hypothesis':<{width}}  {'prior':>6}  {'group':>5}  {'E[min]':>6}  {'right':>5}  complaints")
+    for f in report.faults:
+        group = "-" if f.group is None else str(f.group + 1)
+        minutes = "-" if f.expected_minutes is None else f"{f.expected_minutes:.1f}"
+        right = "-" if f.concluded_right is None else f"{f.concluded_right:.0%}"
+        complaints = ", ".join(f.complaints) if f.complaints else ("-" if f.id == "none" else "NONE")
+        lines.append(f"{f.id:<{width}}  {f.prior:>6.1%}  {group:>5}  {minutes:>6}  {right:>5}  {complaints}")
+    if report.weighted_minutes is not None:
+        lines.append(f"expected minutes to isolate, weighted by prior: {report.weighted_minutes:.1f}")
+    lines.append("")
+    if report.groups:
+        lines.append("ambiguity groups (no test tells these apart):")
+        lines.extend(f"  {i + 1}: {', '.join(g)}" for i, g in enumerate(report.groups))
+    else:
+        lines.append("ambiguity groups: none; every hypothesis can be told from every other")
+    never = [(t, "separates no two hypotheses") for t in report.separates_nothing]
+    never += [(t, f"never chosen in {report.runs * len(report.faults)} simulated diagnoses")
+              for t in report.never_chosen]
+    lines.append("tests that never change any decision:" if never else
+                 "tests that never change any decision: none")
+    lines.extend(f"  {t}: {why}" for t, why in never)
+    lines.append("faults no complaint leads to: " + (", ".join(report.without_complaint) or "none"))
+    lines.append("states the tests need:")
+    for state, label, tests in report.states:
+        lines.append(f"  {state} ({label}): {', '.join(tests) if tests else 'no test'}")
+    if report.tests_without_state:
+        lines.append(f"  no state: {', '.join(report.tests_without_state)}")
+    return "\n".join(lines)
