@@ -2,12 +2,11 @@
 
 For an author deciding which tests to add or drop:
 
-- **ambiguity groups**: hypotheses no test can tell apart. Two hypotheses are told apart by a
-  meter test when at least ``separation`` (default one half) of the readings predicted under
-  one fall outside the band the other predicts (its 2.5th-97.5th percentiles widened by three
-  standard uncertainties of the meter and one display step); by an observation when their
-  outcome probabilities differ by at least ``separation`` in total variation. Hypotheses that no
-  test tells apart are joined, and the groups are the connected sets of that relation.
+- **ambiguity groups**: hypotheses no test can tell apart. A test tells two hypotheses apart
+  when the distributions of what it shows under them (the diagnosis engine's outcome models:
+  display bins with meter noise, OL, observation outcomes) differ by at least ``separation``
+  in total variation (default: the engine's own ambiguity tolerance). Hypotheses that no test
+  tells apart are joined transitively, as the engine groups them when it concludes.
 - **expected minutes to isolate** each fault: the mean cost of the tests the diagnosis engine
   asks before it concludes, over ``runs`` simulated diagnoses with readings drawn under that
   fault (``assistant.simulate.draw_reading``), each started from the first complaint that leads
@@ -30,7 +29,9 @@ from typing import Any
 
 import numpy as np
 
-from assistant.diagnosis import Conclusion, Context, Diagnosis
+from assistant.diagnosis import Conclusion, Context, Diagnosis, evidence_model
+from assistant.planner import AMBIGUITY_TOLERANCE, total_variation
+from assistant.planner import ambiguity_groups as engine_groups
 from assistant.overlay import apply_priors
 from assistant.predict import PredictionTable
 from assistant.ruleset.load import LoadedRuleset
@@ -39,9 +40,7 @@ from assistant.ruleset.model import Ruleset
 log = logging.getLogger("ohmtrail.coverage")
 
 JSON_VERSION = 1
-DEFAULT_SEPARATION = 0.5
-_BAND = (2.5, 97.5)
-_SIGMAS = 3.0
+DEFAULT_SEPARATION = AMBIGUITY_TOLERANCE
 
 
 @dataclass(frozen=True)
@@ -114,45 +113,18 @@ class Coverage:
 # --------------------------------------------------------------------------- separability
 
 
-def _band(values: np.ndarray, sigma: np.ndarray, step: np.ndarray) -> tuple[float, float, float]:
-    """(low, high, OL fraction) of one hypothesis's predicted readings of one test."""
-    finite = np.isfinite(values)
-    ol = 1.0 - float(finite.mean()) if values.size else 0.0
-    if not finite.any():
-        return np.nan, np.nan, ol
-    v = values[finite]
-    widen = _SIGMAS * float(np.median(sigma[finite])) + float(np.median(step[finite]))
-    low, high = np.percentile(v, _BAND)
-    return float(low) - widen, float(high) + widen, ol
-
-
-def _outside(values: np.ndarray, band: tuple[float, float, float]) -> float:
-    """Fraction of ``values`` a reading under the other hypothesis would not give."""
-    low, high, ol = band
-    finite = np.isfinite(values)
-    if np.isnan(low):  # the other always reads OL: only finite readings are outside
-        return float(finite.mean())
-    inside = finite & (values >= low) & (values <= high)
-    if ol > 0.05:  # the other reads OL often enough that OL is no surprise
-        inside |= ~finite
-    return 1.0 - float(inside.mean())
-
-
 def separation_matrix(table: PredictionTable) -> np.ndarray:
-    """``sep[t, a, b]``: how well test ``t`` tells hypothesis ``a`` from ``b`` (0 to 1, symmetric)."""
-    n_h, n_t = len(table.hypotheses), len(table.tests)
-    sep = np.zeros((n_t, n_h, n_h))
-    for t in range(n_t):
-        if t in table.observations:
-            rows = np.asarray(table.observations[t], dtype=float)
-            sep[t] = 0.5 * np.abs(rows[:, None, :] - rows[None, :, :]).sum(axis=2)
-            continue
-        samples = table.samples[:, t, :]
-        bands = [_band(samples[h], table.sigma[h, t, :], table.resolution[h, t, :]) for h in range(n_h)]
-        for a in range(n_h):
-            for b in range(a + 1, n_h):
-                value = max(_outside(samples[a], bands[b]), _outside(samples[b], bands[a]))
-                sep[t, a, b] = sep[t, b, a] = value
+    """``sep[t, a, b]``: total-variation distance between what test ``t`` shows under ``a`` and ``b``.
+
+    The distributions are the diagnosis engine's own outcome models (display bins with meter
+    noise, OL, observation outcomes), so coverage and the engine agree on what a test can tell.
+    """
+    model = evidence_model(table)
+    n_h = len(table.hypotheses)
+    sep = np.zeros((len(model.tests), n_h, n_h))
+    for t, outcomes in enumerate(model.tests):
+        rows = outcomes.model
+        sep[t] = total_variation(rows[:, None, :], rows[None, :, :])
     return sep
 
 
@@ -162,24 +134,9 @@ def ambiguity_groups(table: PredictionTable, separation: float = DEFAULT_SEPARAT
     ids = [h.id for h in table.hypotheses]
     sep = separation_matrix(table)
     told = (sep >= separation).any(axis=0) if sep.size else np.zeros((len(ids), len(ids)), dtype=bool)
-    parent = list(range(len(ids)))
-
-    def find(x: int) -> int:
-        while parent[x] != x:
-            parent[x] = parent[parent[x]]
-            x = parent[x]
-        return x
-
-    partners: dict[str, tuple[str, ...]] = {}
-    for a in range(len(ids)):
-        same = [b for b in range(len(ids)) if b != a and not told[a, b]]
-        partners[ids[a]] = tuple(ids[b] for b in same)
-        for b in same:
-            parent[find(b)] = find(a)
-    members: dict[int, list[str]] = {}
-    for i, hid in enumerate(ids):
-        members.setdefault(find(i), []).append(hid)
-    groups = tuple(tuple(m) for m in members.values() if len(m) > 1)
+    partners = {ids[a]: tuple(ids[b] for b in range(len(ids)) if b != a and not told[a, b])
+                for a in range(len(ids))}
+    groups = tuple(tuple(ids[h] for h in g) for g in engine_groups(evidence_model(table), separation))
     useless = tuple(table.tests[t].id for t in range(len(table.tests)) if not (sep[t] >= separation).any())
     return groups, partners, useless
 
