@@ -19,8 +19,7 @@ from assistant.diagnosis import Conclusion, Context, Diagnosis
 from assistant.errors import OhmtrailError, Problem, RulesetError
 from assistant.overlay import apply_priors
 from assistant.predict import PredictionTable
-from assistant.predict import TestInfo
-from assistant.reading import Reading
+from assistant.reading import parse_reading
 from assistant.ruleset.lint import check_ruleset
 from assistant.ruleset.load import LoadedRuleset, load_ruleset, ruleset_files
 from assistant.ruleset.model import Case
@@ -87,7 +86,7 @@ def run_case(loaded: LoadedRuleset, table: PredictionTable, case: Case, index: i
         if test_id in case.readings:
             text = str(case.readings[test_id])
             try:
-                reading = _parse(text, infos[test_id])
+                reading = parse_reading(text, infos[test_id])
             except OhmtrailError as exc:
                 # the author's mistake in this case: say where, and let the other cases run
                 problem = loaded.locator.problem(f"reading '{text}' for {test_id}: {exc}",
@@ -120,33 +119,6 @@ def run_case(loaded: LoadedRuleset, table: PredictionTable, case: Case, index: i
         log.info("%s/%s: readings not asked for: %s", rs.id, case.id, ", ".join(unused))
     return CaseResult(rs.id, case.id, case.expect, conclusion.diagnosis, conclusion.probability,
                       conclusion.stopped_because, tuple(asked), tuple(skipped), minutes, tuple(differences))
-
-
-def _parse(text: str, test: TestInfo) -> Reading:
-    """A case's reading as the technician would type it, through the session's reading parser."""
-    try:
-        from assistant.reading import parse_reading
-    except ImportError:  # the reading parser is not merged yet: the plain spellings only
-        return _plain_reading(text, test)
-    return parse_reading(text, test)
-
-
-def _plain_reading(text: str, test: TestInfo) -> Reading:
-    from assistant.errors import ReadingError
-    from assistant.ruleset.quantities import CURRENT, RESISTANCE, VOLTAGE, parse_quantity
-
-    typed = text.strip()
-    if test.outcomes:
-        if typed not in test.outcomes:
-            raise ReadingError(f"'{typed}' is not one of {', '.join(test.outcomes)}")
-        return Reading(typed, outcome=typed)
-    if typed.upper() == "OL":
-        return Reading(typed, overload=True)
-    dim = {"V": VOLTAGE, "ohm": RESISTANCE, "A": CURRENT}[test.unit]
-    try:
-        return Reading(typed, value=parse_quantity(typed, dim))
-    except OhmtrailError as exc:
-        raise ReadingError(str(exc)) from exc
 
 
 def run_cases(loaded: LoadedRuleset, table: PredictionTable) -> tuple[CaseResult, ...]:
