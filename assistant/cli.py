@@ -110,7 +110,7 @@ def _cmd_predict(args: argparse.Namespace) -> int:
     from assistant.meter import load_meter_profile
     from assistant.predict import predict, prediction_json, prediction_text
 
-    loaded = _load_checked(args.ruleset)
+    loaded = check_ruleset(load_with_overlays(args))
     meter = load_meter_profile(args.meter) if args.meter else None
     table = predict(loaded, meter, samples=args.samples, seed=args.seed, cache=not args.no_cache)
     if args.json:
@@ -332,6 +332,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--samples", type=int, default=64, metavar="N", help="samples per hypothesis (default 64)")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.add_argument("--no-cache", action="store_true", help="compute afresh; neither read nor write the cache")
+    add_overlay_options(p)
     p.set_defaults(handler=_cmd_predict)
 
     p = sub.add_parser("spice", help="write a SPICE deck of the circuit as modelled",

@@ -29,6 +29,7 @@ from typing import Any
 
 import numpy as np
 
+from assistant.errors import OhmtrailError
 from assistant.diagnosis import Conclusion, Context, Diagnosis, evidence_model
 from assistant.planner import AMBIGUITY_TOLERANCE, total_variation
 from assistant.planner import ambiguity_groups as engine_groups
@@ -152,7 +153,11 @@ def isolation_minutes(loaded: LoadedRuleset, table: PredictionTable, hypothesis:
                       context: Context | None = None) -> tuple[float, float, set[str]]:
     """Mean minutes to conclude under one hypothesis, the fraction concluded right, and the tests asked."""
     if draw is None:
-        from assistant.simulate import draw_reading as draw
+        try:
+            from assistant.simulate import draw_reading as draw
+        except ImportError as exc:  # the simulator is not merged yet
+            raise OhmtrailError("expected minutes need the simulator (assistant.simulate); "
+                                "use --runs 0 for the rest of the report") from exc
     index = {t.id: i for i, t in enumerate(table.tests)}
     target = table.hypotheses[hypothesis].id
     minutes: list[float] = []
