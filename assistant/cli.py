@@ -11,16 +11,60 @@ import json
 import logging
 import sys
 from collections.abc import Callable, Sequence
+from pathlib import Path
 
 from assistant import __version__
-from assistant.errors import LocatedError, OhmtrailError
+from assistant.errors import LocatedError, OhmtrailError, OutputError
+from assistant.export import export_json, read_export, verify_export
+from assistant.history import HEADER as HISTORY_HEADER
+from assistant.history import Repair, default_ruleset_roots, known_ruleset_ids, read_history, repairs_from_store
+from assistant.learn import learn
+from assistant.netgraph import FORMATS as GRAPH_FORMATS
+from assistant.netgraph import circuit_graph, render_graph
+from assistant.overlay import beside_path, overlay_document
+from assistant.record import SessionRecord
+from assistant.report import output_stem, render_report, write_output
 from assistant.ruleset import lint_paths
-from assistant.ruleset.lint import summary
+from assistant.ruleset.lint import check_ruleset, summary
+from assistant.ruleset.load import LoadedRuleset, load_ruleset
+from assistant.scaffold import FAMILIES, write_scaffold
 from assistant.ruleset.model import Ruleset
+from assistant.trail import render_trail
 
 log = logging.getLogger("ohmtrail.cli")
 
 Handler = Callable[[argparse.Namespace], int]
+
+
+# --------------------------------------------------------------------------- shared options
+
+
+def add_overlay_options(p: argparse.ArgumentParser) -> None:
+    """Give a command that loads a RULESET the priors-overlay options (``--overlay``, ``--no-overlay``)."""
+    p.add_argument("--overlay", action="append", default=[], metavar="FILE",
+                   help="apply this priors overlay after the ruleset's own NAME.overlay.yaml (repeatable; "
+                   "later ones win)")
+    p.add_argument("--no-overlay", action="store_true",
+                   help="ignore the NAME.overlay.yaml beside the ruleset")
+
+
+def load_with_overlays(args: argparse.Namespace, attr: str = "ruleset") -> LoadedRuleset:
+    """Load the ruleset named by ``args.<attr>`` with the overlays the options ask for."""
+    return load_ruleset(getattr(args, attr), getattr(args, "overlay", ()) or (),
+                        beside=not getattr(args, "no_overlay", False))
+
+
+def _positive_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a number") from None
+    if not value > 0 or value == float("inf"):
+        raise argparse.ArgumentTypeError(f"'{text}' must be a positive number")
+    return value
+
+
+# --------------------------------------------------------------------------- commands
 
 
 def _cmd_lint(args: argparse.Namespace) -> int:
@@ -36,6 +80,166 @@ def _cmd_schema(args: argparse.Namespace) -> int:
     schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
     schema["title"] = "ohmtrail ruleset, format 1"
     print(json.dumps(schema, indent=2, sort_keys=False))
+    return 0
+
+
+def _load_checked(path: str) -> LoadedRuleset:
+    return check_ruleset(load_ruleset(path))
+
+
+def _cmd_predict(args: argparse.Namespace) -> int:
+    from assistant.meter import load_meter_profile
+    from assistant.predict import predict, prediction_json, prediction_text
+
+    loaded = _load_checked(args.ruleset)
+    meter = load_meter_profile(args.meter) if args.meter else None
+    table = predict(loaded, meter, samples=args.samples, seed=args.seed, cache=not args.no_cache)
+    if args.json:
+        print(json.dumps(prediction_json(table, args.fault), indent=2))
+    else:
+        print(prediction_text(table, args.fault))
+    return 0
+
+
+def _cmd_spice(args: argparse.Namespace) -> int:
+    from assistant.spice import spice_deck
+
+    loaded = _load_checked(args.ruleset)
+    deck = spice_deck(loaded.ruleset, (args.fault or "none",), args.state)
+    if args.output:
+        try:
+            with open(args.output, "w", encoding="utf-8") as fh:
+                fh.write(deck.text)
+        except OSError as exc:
+            raise OutputError(f"{args.output}: cannot be written: {exc.strerror or exc}") from exc
+        print(f"wrote {args.output}: state '{deck.state}', {args.fault or 'no fault'}; run: ngspice -b {args.output}")
+    else:
+        sys.stdout.write(deck.text)
+    return 0
+
+
+def _load_session(args: argparse.Namespace) -> SessionRecord:
+    from assistant.store import open_store
+
+    return open_store(args.db).load(args.session_id)
+
+
+def _emit(data: bytes, output: str | None, default_name: str) -> None:
+    """Write to ``-o FILE`` (``-`` for stdout) or to ``default_name`` here, and say where."""
+    if output == "-":
+        sys.stdout.buffer.write(data)
+        sys.stdout.flush()
+        return
+    path = write_output(Path(output or default_name), data)
+    print(path)
+
+
+def _cmd_trail(args: argparse.Namespace) -> int:
+    record = _load_session(args)
+    drawing = render_trail(record, args.format)
+    output = args.output
+    if drawing.hint and output not in (None, "-"):
+        output = str(Path(output).with_suffix(".dot"))
+    _emit(drawing.data, output, f"{output_stem(record.id)}-trail.{drawing.format}")
+    if drawing.hint:
+        print(f"ohmtrail: {drawing.hint}", file=sys.stderr)
+        return 1
+    return 0
+
+
+def _cmd_report(args: argparse.Namespace) -> int:
+    record = _load_session(args)
+    _emit(render_report(record, args.format), args.output,
+          f"{output_stem(record.id)}-report.{args.format}")
+    return 0
+
+
+def _cmd_export(args: argparse.Namespace) -> int:
+    record = _load_session(args)
+    _emit(export_json(record).encode("utf-8"), args.output,
+          f"{output_stem(record.id)}-export.json")
+    return 0
+
+
+def _cmd_verify(args: argparse.Namespace) -> int:
+    result = verify_export(read_export(Path(args.file)))
+    if result.intact:
+        print(f"{args.file}: {result.message}")
+        return 0
+    place = f"{result.place}: " if result.place else ""
+    print(f"{args.file}: {place}{result.message}", file=sys.stderr)
+    return 1
+
+
+def _add_session_command(sub: argparse._SubParsersAction[argparse.ArgumentParser], name: str,
+                         help_text: str, description: str) -> argparse.ArgumentParser:
+    p = sub.add_parser(name, help=help_text, description=description)
+    p.add_argument("session_id", metavar="ID", help="the session id")
+    p.add_argument("-o", "--output", metavar="FILE",
+                   help="where to write ('-' for standard output; default: a file named after "
+                   "the session in the current folder)")
+    p.add_argument("--db", metavar="URL", help="session store URL (default: $OHMTRAIL_DB or the "
+                   "SQLite store in the user data folder)")
+    return p
+
+
+def _cmd_learn(args: argparse.Namespace) -> int:
+    loaded = load_ruleset(args.ruleset, beside=False)  # learn from the author's weights, not an old overlay
+    out = Path(args.output) if args.output else beside_path(args.ruleset)
+    if out.resolve() == Path(args.ruleset).resolve():
+        raise OutputError(f"{out}: that is the ruleset itself; an overlay is written beside it, never over it")
+    if out.suffix not in (".yaml", ".yml"):
+        raise OutputError(f"{out}: an overlay file name must end in .yaml")
+    repairs: list[Repair] = []
+    if args.history:
+        roots = args.rulesets or default_ruleset_roots(args.ruleset)
+        known = known_ruleset_ids(roots) | {loaded.ruleset.id}
+        repairs.extend(read_history(args.history, known))
+    if args.sessions or args.db:
+        repairs.extend(repairs_from_store(args.db))
+    if not args.history and not (args.sessions or args.db):
+        raise OhmtrailError("learn needs --history FILE, or --sessions / --db URL for the store's closed sessions")
+    result = learn(loaded.ruleset, repairs, args.strength)
+    for item in result.uncounted:
+        print(f"not counted: {item.source}: {item.fault_id} ({item.reason})")
+    if result.repairs == 0:
+        raise OhmtrailError(f"no repairs of ruleset '{loaded.ruleset.id}' to learn from; no overlay written")
+    rs = loaded.ruleset
+    total = rs.none_weight + sum(result.old.values())
+    print(f"{rs.id}: {result.repairs} repairs counted, prior strength {result.strength:g} pseudo-repairs")
+    print(f"{'fault':<34} {'repairs':>7} {'old weight':>10} {'new weight':>10} {'old prior':>9} {'new prior':>9}")
+    changed = result.changed()
+    for fault_id in changed:
+        old, new = result.old[fault_id], result.new[fault_id]
+        print(f"{fault_id:<34} {result.counts.get(fault_id, 0):>7} {old:>10.4g} {new:>10.4g} "
+              f"{old / total:>9.1%} {new / total:>9.1%}")
+    note = (f"learned by ohmtrail learn from {result.repairs} repairs"
+            f"{' in ' + Path(args.history).name if args.history else ''}, strength {result.strength:g}")
+    text = overlay_document(rs, result.new, ruleset_sha256=loaded.sha256, note=note)
+    try:
+        out.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise OutputError(f"{out}: cannot write: {exc.strerror or exc}") from exc
+    print(f"{len(changed)} weights changed; overlay written to {out}")
+    return 0
+
+
+def _cmd_new(args: argparse.Namespace) -> int:
+    target = write_scaffold(args.family, args.name, args.output)
+    print(f"wrote {target}: a {args.family} ruleset to adapt; then `ohmtrail lint {target}` and "
+          f"`ohmtrail check {target}`")
+    return 0
+
+
+def _cmd_graph(args: argparse.Namespace) -> int:
+    loaded = load_with_overlays(args)
+    graph = circuit_graph(loaded.ruleset, args.state)
+    out = args.output or f"{Path(args.ruleset).stem}{'-' + args.state if args.state else ''}.{args.format}"
+    drawing = render_graph(graph, args.format, out)
+    if drawing.hint:
+        print(drawing.hint, file=sys.stderr)
+    else:
+        print(f"wrote {drawing.path}")
     return 0
 
 
@@ -59,6 +263,97 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("schema", help="print the JSON Schema of the ruleset format",
                        description="Print the JSON Schema of ruleset format 1, for editor completion.")
     p.set_defaults(handler=_cmd_schema)
+
+    p = sub.add_parser("predict", help="predicted meter readings of every test under every fault",
+                       description="Compute what the meter should read at every test of a ruleset under "
+                       "every fault (and with no fault), by Monte Carlo over tolerances and fault "
+                       "magnitudes through the meter model. Results are cached by the ruleset's content.")
+    p.add_argument("ruleset", metavar="RULESET", help="a ruleset file")
+    p.add_argument("--fault", metavar="ID", help="show only this fault (and 'none'), with ranges")
+    p.add_argument("--json", action="store_true", help="print JSON: ruleset, faults, tests, predictions")
+    p.add_argument("--meter", metavar="FILE", help="a meter profile (default: the bundled 2000-count handheld)")
+    p.add_argument("--samples", type=int, default=64, metavar="N", help="samples per hypothesis (default 64)")
+    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--no-cache", action="store_true", help="compute afresh; neither read nor write the cache")
+    p.set_defaults(handler=_cmd_predict)
+
+    p = sub.add_parser("spice", help="write a SPICE deck of the circuit as modelled",
+                       description="Write a SPICE deck of the ruleset's circuit at nominal values in one "
+                       "operating state, with a fault injected (magnitude at the middle of its range), "
+                       "relays, fuses and motors settled. Check it with: ngspice -b FILE")
+    p.add_argument("ruleset", metavar="RULESET", help="a ruleset file")
+    p.add_argument("--fault", metavar="ID", help="inject this fault (default: none)")
+    p.add_argument("--state", metavar="S", help="operating state (default: the ruleset's first)")
+    p.add_argument("-o", "--output", metavar="FILE", help="write to FILE instead of standard output")
+    p.set_defaults(handler=_cmd_spice)
+    p = _add_session_command(
+        sub, "trail", "draw a session's decision trail",
+        "Draw the path a session took (complaint, each test with its reading against the healthy "
+        "range and the leading suspects, skipped and re-measured tests, rules fired, conclusion, "
+        "repair, verification) with graphviz. Without graphviz's dot program the DOT source is "
+        "written instead, with a hint, and the exit status is 1.")
+    p.add_argument("--format", choices=("svg", "pdf", "png", "dot"), default="svg",
+                   help="drawing format (default: svg)")
+    p.set_defaults(handler=_cmd_trail)
+
+    p = _add_session_command(
+        sub, "report", "write a session's claim report",
+        "Write the printable claim report of a session: vehicle, complaint, technician, meter, "
+        "ruleset and its hash, every step, the diagnosis and alternatives, repair, verification, "
+        "the trail, the cautions and the session digest. An open session is marked in progress.")
+    p.add_argument("--format", choices=("pdf", "html"), default="pdf",
+                   help="report format (default: pdf)")
+    p.set_defaults(handler=_cmd_report)
+
+    p = _add_session_command(
+        sub, "export", "export a session as sealed JSON",
+        "Write a session as JSON (export format 1, docs/export-format.md) with its hash chain and "
+        "session digest, for `ohmtrail verify`.")
+    p.set_defaults(handler=_cmd_export)
+
+    p = sub.add_parser("verify", help="check an exported session's hash chain",
+                       description="Recompute the hash chain and the session digest of an "
+                       "exported session. Prints 'intact' and exits 0, or names the first step "
+                       "or field that differs and exits 1.")
+    p.add_argument("file", metavar="FILE", help="a JSON file written by `ohmtrail export`")
+    p.set_defaults(handler=_cmd_verify)
+    p = sub.add_parser("learn", help="tune a ruleset's fault weights from the fleet's repair history",
+                       description="Count confirmed repairs (a history CSV, and/or the store's closed "
+                       "sessions) and write a priors overlay: the ruleset's fault weights updated by "
+                       "Dirichlet (additive) smoothing. Prints the old and new weight of every fault that "
+                       "changed. The ruleset file is never rewritten. CSV header: " + HISTORY_HEADER)
+    p.add_argument("ruleset", metavar="RULESET")
+    p.add_argument("--history", metavar="FILE", help="repair-history CSV file")
+    p.add_argument("--sessions", action="store_true", help="also count the closed sessions of the store")
+    p.add_argument("--db", metavar="URL", help="the session store to read (implies --sessions)")
+    p.add_argument("-o", "--output", metavar="OVERLAY",
+                   help="overlay file to write (default: NAME.overlay.yaml beside the ruleset, applied "
+                   "automatically from then on)")
+    p.add_argument("--strength", type=_positive_float, default=None, metavar="N",
+                   help="weight of the ruleset's own priors, in pseudo-repairs (default: the number of faults)")
+    p.add_argument("--rulesets", action="append", metavar="PATH",
+                   help="rulesets whose ids the history may also name (rows for them are skipped); default: "
+                   "the rulesets/ folder the ruleset is in")
+    p.set_defaults(handler=_cmd_learn)
+
+    p = sub.add_parser("new", help="write a commented starting ruleset for a circuit family",
+                       description="Write NAME.yaml: a commented starting ruleset for the family that "
+                       "lints clean and has one case, for the author to adapt. Never overwrites a file.")
+    p.add_argument("family", metavar="FAMILY", choices=FAMILIES, help=", ".join(FAMILIES))
+    p.add_argument("name", metavar="NAME", help="the new ruleset's id (and file name)")
+    p.add_argument("-o", "--output", metavar="FILE", help="where to write it (default: NAME.yaml)")
+    p.set_defaults(handler=_cmd_new)
+
+    p = sub.add_parser("graph", help="draw a ruleset's circuit as modelled",
+                       description="Draw the circuit of a ruleset with Graphviz: test points (nodes) with "
+                       "their tests, components with their values, and which states close each switch. "
+                       "Without the 'dot' program the DOT source is written instead, with a hint.")
+    p.add_argument("ruleset", metavar="RULESET")
+    p.add_argument("--format", choices=GRAPH_FORMATS, default="svg", help="output format (default svg)")
+    p.add_argument("-o", "--output", metavar="FILE", help="where to write it (default: NAME.FORMAT here)")
+    p.add_argument("--state", metavar="S", help="draw the contacts as this operating state sets them")
+    add_overlay_options(p)
+    p.set_defaults(handler=_cmd_graph)
     return parser
 
 

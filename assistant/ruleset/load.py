@@ -122,13 +122,29 @@ def _is_scalar(value: Any) -> bool:
 
 @dataclass(frozen=True, eq=False)
 class LoadedRuleset:
-    """A validated ruleset with where it came from: path, SHA-256 of its bytes, positions."""
+    """A validated ruleset with where it came from: path, SHA-256 of its bytes, positions.
+
+    ``overlays`` names the priors overlays applied to ``ruleset`` (see ``assistant.overlay``),
+    in the order applied, each as ``PATH sha256:HEX`` (what a session record keeps);
+    ``overlay_sha256`` holds their SHA-256s alone. ``sha256`` stays that of the ruleset file.
+    """
 
     ruleset: Ruleset
     path: str
     sha256: str
     locator: Locator = field(repr=False)
     overlays: tuple[str, ...] = ()
+    overlay_sha256: tuple[str, ...] = ()
+
+    @property
+    def content_sha256(self) -> str:
+        """SHA-256 of what was loaded: the ruleset file's, or with overlays, over it and theirs.
+
+        Anything cached from the weights (prediction priors) must be keyed by this.
+        """
+        if not self.overlay_sha256:
+            return self.sha256
+        return hashlib.sha256(" ".join((self.sha256, *self.overlay_sha256)).encode()).hexdigest()
 
 
 def _yaml() -> YAML:
@@ -356,8 +372,28 @@ def _message(err: dict[str, Any]) -> str:
     return msg
 
 
-def load_ruleset(path: str | Path) -> LoadedRuleset:
-    """Load and validate one ruleset file (schema only; ``lint`` adds the semantic checks)."""
+def load_ruleset(path: str | Path, overlays: Sequence[str | Path] = (), *, beside: bool = True) -> LoadedRuleset:
+    """Load and validate one ruleset file (schema only; ``lint`` adds the semantic checks).
+
+    Priors overlays are applied in order: ``NAME.overlay.yaml`` beside the file first (unless
+    ``beside`` is false), then each of ``overlays``.
+    """
+    loaded = _load_plain(path)
+    from assistant import overlay as _overlay  # the overlay module builds on this one
+
+    files = [Path(p) for p in overlays]
+    auto = _overlay.beside_path(path)
+    if beside and auto.is_file() and all(f.resolve() != auto.resolve() for f in files):
+        files.insert(0, auto)
+    if not files:
+        return loaded
+    found = [_overlay.load_overlay(f) for f in files]
+    ruleset = _overlay.apply_overlays(loaded.ruleset, found, loaded.sha256)
+    return LoadedRuleset(ruleset, loaded.path, loaded.sha256, loaded.locator,
+                         tuple(o.label for o in found), tuple(o.sha256 for o in found))
+
+
+def _load_plain(path: str | Path) -> LoadedRuleset:
     p = Path(path)
     name = str(path)
     data, text = read_text(p)

@@ -1,0 +1,1 @@
+"""The circuit engine: component models, fault injection and batched nodal analysis."""

@@ -1,0 +1,208 @@
+"""Measurement kinds: each test kind predicts what the meter displays under every variant.
+
+- ``voltage``: the meter's input resistance from the node to the reference, applied through the
+  Thevenin resistance the probes see (one extra right-hand side on the same factorisation). A
+  node that a fault cut off from the reference reads what a 10 MΩ input on an open circuit
+  reads: 0 V; two nodes of one floating island read the difference inside it.
+- ``drop``: the same between two nodes, with the circuit working in its state.
+- ``fuse_drop``: the drop across a fuse in place (millivolts: current × its cold resistance;
+  the full gap voltage once it is blown).
+- ``resistance``: the de-energised circuit (sources out, ``isolate`` taken out, or ``only`` the
+  parts named, on the bench), driven by the meter's own source between the two nodes, plus the
+  test leads; no path is OL.
+- ``current``: the meter in series at the part's first node with its shunt burden; the jack as
+  the test asks, or chosen from the current expected with no fault; a clamp above the jack.
+- ``observation``: no meter; the author's P(outcome) rows, picked by fault id, then component
+  id, then ``default``.
+"""
+
+from __future__ import annotations
+
+from abc import ABC, abstractmethod
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any, ClassVar
+
+import numpy as np
+
+from assistant.circuit.netlist import METER, Batch, CircuitModel, Shunt
+from assistant.circuit.operating import OperatingPoint, operate
+from assistant.errors import CircuitError
+from assistant.meter import (
+    Display,
+    MeterProfile,
+    choose_jack,
+    current_accuracy,
+    jack_scales,
+    ohms_scales,
+    show,
+    volts_scales,
+)
+
+
+@dataclass(frozen=True, eq=False)
+class Env:
+    """What every measurement of one batch reads from: the solved states and the meter."""
+
+    model: CircuitModel
+    batch: Batch
+    meter: MeterProfile
+    points: Mapping[str, OperatingPoint]  # every energised state, settled
+    blown: Mapping[str, np.ndarray]  # fuses blown in any state (they stay blown)
+    reference: slice  # the variants of the no-fault hypothesis (for the jack choice)
+
+
+def voltmeter(point: OperatingPoint, a: str, b: str, input_ohms: float) -> np.ndarray:
+    """(B,) what a voltmeter of ``input_ohms`` reads from node ``a`` (red) to ``b`` (black)."""
+    sol, net = point.solution, point.built.net
+    ia, ib = net.index(a), net.index(b)
+    k = point.probe(a, b)
+    open_volts = sol.volts[:, ia] - sol.volts[:, ib]
+    thevenin = np.maximum(sol.response[:, ia, k] - sol.response[:, ib, k], 0.0)
+    same = sol.island[:, ia] == sol.island[:, ib]
+    return np.where(same, open_volts * input_ohms / (input_ohms + thevenin), 0.0)
+
+
+class Measurement(ABC):
+    """One meter test of a ruleset, able to predict its display."""
+
+    kind: ClassVar[str]
+    unit: ClassVar[str]
+
+    def __init__(self, test: Any, model: CircuitModel) -> None:
+        self.test = test
+        self.model = model
+        self.state = model.state(test.state)
+
+    def probes(self) -> tuple[tuple[str, str], ...]:
+        """Node pairs the state's solve must carry a probe column for."""
+        return ()
+
+    @abstractmethod
+    def points(self) -> tuple[str, ...]:
+        """(red, black) nodes, or the part a current test breaks into."""
+
+    @abstractmethod
+    def display(self, env: Env) -> Display:
+        """What the meter shows in every variant."""
+
+
+class VoltageMeasurement(Measurement):
+    kind = "voltage"
+    unit = "V"
+
+    def points(self) -> tuple[str, ...]:
+        return (self.test.at, self.test.reference or self.model.ruleset.ground)
+
+    def probes(self) -> tuple[tuple[str, str], ...]:
+        red, black = self.points()
+        return ((red, black),)
+
+    def display(self, env: Env) -> Display:
+        red, black = self.points()
+        values = voltmeter(env.points[self.state], red, black, env.meter.dc_volts.input_resistance)
+        return show(values, volts_scales(env.meter), env.meter.dc_volts.accuracy)
+
+
+class DropMeasurement(VoltageMeasurement):
+    kind = "drop"
+
+    def points(self) -> tuple[str, ...]:
+        return tuple(self.test.between)
+
+
+class FuseDropMeasurement(VoltageMeasurement):
+    kind = "fuse_drop"
+
+    def points(self) -> tuple[str, ...]:
+        part = self.model.by_id.get(self.test.fuse)
+        if part is None:
+            raise CircuitError(f"test '{self.test.id}' names fuse '{self.test.fuse}', not in the circuit")
+        return part.nodes
+
+
+class ResistanceMeasurement(Measurement):
+    kind = "resistance"
+    unit = "ohm"
+
+    def points(self) -> tuple[str, ...]:
+        return tuple(self.test.between)
+
+    def display(self, env: Env) -> Display:
+        a, b = self.points()
+        point = operate(self.model, env.batch, self.state, energised=False, blown=env.blown, probes=[(a, b)],
+                        isolate=self.test.isolate, only=self.test.only)
+        sol, net = point.solution, point.built.net
+        ia, ib = net.index(a), net.index(b)
+        ohms = np.maximum(sol.response[:, ia, 0] - sol.response[:, ib, 0], 0.0)
+        ohms = np.where(sol.island[:, ia] == sol.island[:, ib], ohms + env.meter.ohms.lead_resistance, np.inf)
+        return show(ohms, ohms_scales(env.meter), env.meter.ohms.accuracy)
+
+
+class CurrentMeasurement(Measurement):
+    kind = "current"
+    unit = "A"
+
+    def points(self) -> tuple[str, ...]:
+        return (self.test.component,)
+
+    def jack(self, env: Env) -> str:
+        running = env.points[self.state].current(self.test.component)[env.reference]
+        expected = float(np.median(running)) if running.size else None
+        return choose_jack(env.meter, expected, self.test.jack)
+
+    def display(self, env: Env) -> Display:
+        if self.test.component not in self.model.by_id:
+            raise CircuitError(f"test '{self.test.id}' names '{self.test.component}', not in the circuit")
+        jack = self.jack(env)
+        scales_ = jack_scales(env.meter, jack)  # type: ignore[arg-type]
+        accuracy = current_accuracy(env.meter, jack)  # type: ignore[arg-type]
+        if jack == "clamp":
+            return show(env.points[self.state].current(self.test.component), scales_, accuracy)
+        chosen: np.ndarray | None = None
+        found = np.zeros(env.batch.size, dtype=bool)
+        for sc in scales_:
+            point = operate(self.model, env.batch, self.state, blown=env.blown,
+                            shunt=Shunt(self.test.component, sc.burden))
+            amps = point.current(METER)
+            chosen = amps if chosen is None else np.where(found, chosen, amps)
+            found |= np.abs(amps) <= sc.limit
+        assert chosen is not None
+        return show(chosen, scales_, accuracy)
+
+
+MEASUREMENTS: dict[str, type[Measurement]] = {
+    cls.kind: cls
+    for cls in (VoltageMeasurement, DropMeasurement, FuseDropMeasurement, ResistanceMeasurement, CurrentMeasurement)
+}
+
+
+def measurement_for(test: Any, model: CircuitModel) -> Measurement:
+    """The measurement of a meter test; an unknown kind raises CircuitError."""
+    cls = MEASUREMENTS.get(getattr(test, "kind", None))  # type: ignore[arg-type]
+    if cls is None:
+        raise CircuitError(f"test '{getattr(test, 'id', '?')}' has kind '{getattr(test, 'kind', '?')}', "
+                           "which no measurement model predicts")
+    return cls(test, model)
+
+
+def observation_rows(test: Any, hypotheses: Sequence[tuple[str, Sequence[Any]]]) -> np.ndarray:
+    """(H, K) P(outcome | hypothesis) of an observation test.
+
+    A hypothesis takes the row of its fault id; failing that, of its component id; failing that
+    ``default``. A pair takes the first of its faults' rows that is named, in that order.
+    """
+    table = test.likelihoods
+    outcomes = tuple(test.outcomes)
+    rows = np.empty((len(hypotheses), len(outcomes)))
+    for h, (hyp_id, faults) in enumerate(hypotheses):
+        key = "none" if not faults and "none" in table else None
+        for fault in faults:
+            if key is None and fault.id in table:
+                key = fault.id
+        for fault in faults:
+            if key is None and fault.component in table:
+                key = fault.component
+        row = table[key or "default"]
+        rows[h] = [row[o] for o in outcomes]
+    return rows

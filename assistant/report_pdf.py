@@ -1,0 +1,210 @@
+"""The claim report laid out as an A4 PDF with reportlab.
+
+Takes the plain-text :class:`assistant.report.ReportContent` and escapes every text for
+reportlab's paragraph markup, so that a note reading ``<b>`` prints as written. The text is set
+in the Bitstream Vera fonts that ship with reportlab (they have Ω, µ and the dashes, and embed
+with a text layer that PDF readers and pypdf can extract). The trail drawing, rendered to PNG,
+is cut into page-high slices at blank rows so that a long trail stays at full width.
+"""
+
+from __future__ import annotations
+
+import io
+import logging
+from typing import TYPE_CHECKING
+from xml.sax.saxutils import escape
+
+from reportlab.lib import colors
+from reportlab.lib.pagesizes import A4
+from reportlab.lib.styles import ParagraphStyle
+from reportlab.lib.units import mm
+from reportlab.pdfbase import pdfmetrics
+from reportlab.pdfbase.ttfonts import TTFont
+from reportlab.pdfgen.canvas import Canvas
+from reportlab.platypus import (
+    Flowable,
+    Image,
+    KeepTogether,
+    Paragraph,
+    SimpleDocTemplate,
+    Spacer,
+    Table,
+    TableStyle,
+)
+
+if TYPE_CHECKING:
+    from assistant.report import ReportContent
+
+log = logging.getLogger("ohmtrail.report_pdf")
+
+MARGIN = 15 * mm
+FRAME_WIDTH = A4[0] - 2 * MARGIN  # 180 mm, about 510 pt
+FRAME_HEIGHT = A4[1] - 2 * MARGIN - 10 * mm  # less the running header and footer
+_FONTS = {"regular": "OhmtrailSans", "bold": "OhmtrailSans-Bold",
+          "italic": "OhmtrailSans-Italic", "bolditalic": "OhmtrailSans-BoldItalic"}
+_FILES = {"regular": "Vera.ttf", "bold": "VeraBd.ttf", "italic": "VeraIt.ttf",
+          "bolditalic": "VeraBI.ttf"}
+_DPI = 150  # the PNG the trail module renders for the PDF
+
+
+def _register_fonts() -> None:
+    if _FONTS["regular"] in pdfmetrics.getRegisteredFontNames():
+        return
+    for key, name in _FONTS.items():
+        pdfmetrics.registerFont(TTFont(name, _FILES[key]))
+    pdfmetrics.registerFontFamily(_FONTS["regular"], normal=_FONTS["regular"],
+                                  bold=_FONTS["bold"], italic=_FONTS["italic"],
+                                  boldItalic=_FONTS["bolditalic"])
+
+
+def _p(text: str) -> str:
+    """Plain text as reportlab paragraph markup: escaped, line breaks kept."""
+    return escape(text).replace("\n", "<br/>")
+
+
+def _styles() -> dict[str, ParagraphStyle]:
+    base = ParagraphStyle("base", fontName=_FONTS["regular"], fontSize=9.5, leading=12)
+    return {
+        "body": base,
+        "small": ParagraphStyle("small", parent=base, fontSize=8, leading=10),
+        "cell": ParagraphStyle("cell", parent=base, fontSize=8, leading=9.6),
+        "head": ParagraphStyle("head", parent=base, fontName=_FONTS["bold"], fontSize=8,
+                               leading=9.6),
+        "h1": ParagraphStyle("h1", parent=base, fontName=_FONTS["bold"], fontSize=14,
+                             leading=18, spaceAfter=4 * mm),
+        "h2": ParagraphStyle("h2", parent=base, fontName=_FONTS["bold"], fontSize=11.5,
+                             leading=14, spaceBefore=5 * mm, spaceAfter=2 * mm),
+        "diagnosis": ParagraphStyle("diagnosis", parent=base, fontName=_FONTS["bold"],
+                                    fontSize=12, leading=15, spaceAfter=2 * mm),
+        "banner": ParagraphStyle("banner", parent=base, fontName=_FONTS["bold"],
+                                 backColor=colors.HexColor("#fff4e5"), borderPadding=4,
+                                 borderColor=colors.HexColor("#b45309"), borderWidth=1.5,
+                                 spaceAfter=5 * mm),
+        "mono": ParagraphStyle("mono", parent=base, fontName="Courier", fontSize=8.5,
+                               leading=10.5),
+    }
+
+
+def _facts_table(rows: tuple[tuple[str, str], ...], st: dict[str, ParagraphStyle]) -> Table:
+    data = [[Paragraph(_p(k), st["small"]), Paragraph(_p(v), st["body"])] for k, v in rows]
+    table = Table(data, colWidths=[0.3 * FRAME_WIDTH, 0.7 * FRAME_WIDTH], hAlign="LEFT")
+    table.setStyle(TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"),
+                               ("TEXTCOLOR", (0, 0), (0, -1), colors.HexColor("#444444")),
+                               ("LINEBELOW", (0, 0), (-1, -1), 0.25, colors.HexColor("#dddddd"))]))
+    return table
+
+
+_STEP_COLUMNS = (("#", 16), ("time (UTC)", 58), ("step", 150), ("reading", 52), ("healthy", 62),
+                 ("verdict", 46), ("leading after", 126))
+
+
+def _steps_table(content: ReportContent, st: dict[str, ParagraphStyle]) -> Table:
+    data: list[list[Paragraph]] = [[Paragraph(_p(h), st["head"]) for h, _ in _STEP_COLUMNS]]
+    grey_rows = []
+    for n, row in enumerate(content.steps, start=1):
+        what = _p(row.what) + (f"<br/><i>{_p(row.note)}</i>" if row.note else "")
+        cells = [row.index, row.time, None, row.reading, row.expected, row.verdict, row.leading]
+        marked = [what if text is None else _p(text) for text in cells]
+        if row.taken_back:
+            marked = [f"<strike>{m}</strike>" for m in marked]
+            grey_rows.append(n)
+        data.append([Paragraph(m, st["cell"]) for m in marked])
+    table = Table(data, colWidths=[w for _, w in _STEP_COLUMNS], repeatRows=1, hAlign="LEFT")
+    style = [("VALIGN", (0, 0), (-1, -1), "TOP"),
+             ("BACKGROUND", (0, 0), (-1, 0), colors.HexColor("#eeeeee")),
+             ("LINEBELOW", (0, 0), (-1, -1), 0.25, colors.HexColor("#cccccc")),
+             ("LEFTPADDING", (0, 0), (-1, -1), 2), ("RIGHTPADDING", (0, 0), (-1, -1), 2)]
+    style += [("TEXTCOLOR", (0, n), (-1, n), colors.HexColor("#777777")) for n in grey_rows]
+    table.setStyle(TableStyle(style))
+    return table
+
+
+def _trail_slices(png: bytes) -> list[Flowable]:
+    """The trail PNG as full-width images, cut at blank rows to fit a page each."""
+    from PIL import Image as PILImage
+
+    picture = PILImage.open(io.BytesIO(png)).convert("RGB")
+    scale = min(1.0, FRAME_WIDTH / (picture.width * 72.0 / _DPI))  # points per pixel factor
+    pt_per_px = 72.0 / _DPI * scale
+    max_rows = int(FRAME_HEIGHT * 0.92 / pt_per_px)
+    slices: list[Flowable] = []
+    top = 0
+    while top < picture.height:
+        bottom = min(picture.height, top + max_rows)
+        if bottom < picture.height:
+            # move the cut up to a row with nothing drawn on it, so no text is cut in half
+            for row in range(bottom, max(top + max_rows // 2, bottom - 400), -1):
+                lo, hi = picture.crop((0, row, picture.width, row + 1)).convert("L").getextrema()
+                if lo >= 250:
+                    bottom = row
+                    break
+        piece = picture.crop((0, top, picture.width, bottom))
+        buffer = io.BytesIO()
+        piece.save(buffer, format="PNG")
+        buffer.seek(0)
+        slices.append(Image(buffer, width=piece.width * pt_per_px,
+                            height=piece.height * pt_per_px, hAlign="LEFT"))
+        top = bottom
+    return slices
+
+
+def pdf_from_content(content: ReportContent, trail_png: bytes | None,
+                     trail_hint: str | None = None) -> bytes:
+    """The report as A4 PDF bytes; without a trail picture, a line says why it is missing."""
+    _register_fonts()
+    st = _styles()
+    story: list[Flowable] = [Paragraph(_p(content.title), st["h1"])]
+    if content.in_progress:
+        story.append(Paragraph(_p(content.status_line), st["banner"]))
+    if content.integrity_problem:
+        story.append(Paragraph(_p("Integrity check failed: " + content.integrity_problem),
+                               st["banner"]))
+    story += [Paragraph("Session", st["h2"]), _facts_table(content.facts, st)]
+    prob = f" ({content.diagnosis_probability})" if content.diagnosis_probability else ""
+    block: list[Flowable] = [Paragraph("Diagnosis", st["h2"]),
+                             Paragraph(_p(content.diagnosis + prob), st["diagnosis"])]
+    if content.stopped_because:
+        block.append(Paragraph(_p("Stopped because: " + content.stopped_because), st["body"]))
+    if content.alternatives:
+        block += [Spacer(1, 2 * mm), Paragraph("Alternatives left:", st["body"]),
+                  _facts_table(content.alternatives, st)]
+    story.append(KeepTogether(block))
+    story += [Paragraph("Repair", st["h2"]), Paragraph(_p(content.repair), st["body"]),
+              Paragraph("Verification", st["h2"]), Paragraph(_p(content.verification), st["body"]),
+              Paragraph("Steps", st["h2"]), _steps_table(content, st),
+              Paragraph("Decision trail", st["h2"])]
+    if trail_png is not None:
+        story += _trail_slices(trail_png)
+    else:
+        story.append(Paragraph(_p(trail_hint or "The trail drawing is not available."),
+                               st["body"]))
+    story.append(Paragraph("Cautions", st["h2"]))
+    story += [Paragraph(_p("• " + text), st["body"]) for text in content.cautions]
+    story += [Paragraph("Integrity", st["h2"]),
+              Paragraph("Session digest (SHA-256):", st["body"]),
+              Paragraph(_p(content.digest), st["mono"]),
+              Paragraph(_p(f"{content.step_count} steps, each chained to the one before; last "
+                           f"step digest {content.last_step_digest}. Check an exported copy with "
+                           "`ohmtrail verify FILE`: it must say intact and show this digest."),
+                        st["small"]),
+              Spacer(1, 4 * mm), Paragraph(_p(f"Written by {content.generator}."), st["small"])]
+
+    def decorate(canvas: Canvas, doc: SimpleDocTemplate) -> None:
+        canvas.saveState()
+        canvas.setFont(_FONTS["regular"], 7.5)
+        footer = f"{content.title} · digest {content.digest[:16]}… · page {doc.page}"
+        canvas.drawString(MARGIN, MARGIN - 6 * mm, footer)
+        if content.in_progress:
+            canvas.setFont(_FONTS["bold"], 9)
+            canvas.setFillColor(colors.HexColor("#b45309"))
+            canvas.drawRightString(A4[0] - MARGIN, A4[1] - MARGIN + 4 * mm,
+                                   "IN PROGRESS: not a final report")
+        canvas.restoreState()
+
+    buffer = io.BytesIO()
+    doc = SimpleDocTemplate(buffer, pagesize=A4, leftMargin=MARGIN, rightMargin=MARGIN,
+                            topMargin=MARGIN, bottomMargin=MARGIN, title=content.title,
+                            author=content.generator, subject="electrical fault diagnosis report")
+    doc.build(story, onFirstPage=decorate, onLaterPages=decorate)
+    log.info("PDF report: %d bytes", buffer.tell())
+    return buffer.getvalue()
