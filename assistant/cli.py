@@ -11,17 +11,79 @@ import json
 import logging
 import sys
 from collections.abc import Callable, Sequence
+from pathlib import Path
 
 from assistant import __version__
 from assistant.errors import LocatedError, OhmtrailError, OutputError
+from assistant.cases import check_paths, default_predictor
+from assistant.coverage import DEFAULT_SEPARATION, coverage, coverage_text
+from assistant.export import export_json, read_export, verify_export
+from assistant.history import HEADER as HISTORY_HEADER
+from assistant.history import Repair, default_ruleset_roots, known_ruleset_ids, read_history, repairs_from_store
+from assistant.learn import learn
+from assistant.netgraph import FORMATS as GRAPH_FORMATS
+from assistant.netgraph import circuit_graph, render_graph
+from assistant.overlay import beside_path, overlay_document
+from assistant.record import SessionRecord
+from assistant.report import output_stem, render_report, session_names, write_output
 from assistant.ruleset import lint_paths
 from assistant.ruleset.lint import check_ruleset, summary
 from assistant.ruleset.load import LoadedRuleset, load_ruleset
+from assistant.scaffold import FAMILIES, write_scaffold
 from assistant.ruleset.model import Ruleset
+from assistant.trail import render_trail
 
 log = logging.getLogger("ohmtrail.cli")
 
 Handler = Callable[[argparse.Namespace], int]
+
+
+# --------------------------------------------------------------------------- shared options
+
+
+def add_overlay_options(p: argparse.ArgumentParser) -> None:
+    """Give a command that loads a RULESET the priors-overlay options (``--overlay``, ``--no-overlay``)."""
+    p.add_argument("--overlay", action="append", default=[], metavar="FILE",
+                   help="apply this priors overlay after the ruleset's own NAME.overlay.yaml (repeatable; "
+                   "later ones win)")
+    p.add_argument("--no-overlay", action="store_true",
+                   help="ignore the NAME.overlay.yaml beside the ruleset")
+
+
+def load_with_overlays(args: argparse.Namespace, attr: str = "ruleset") -> LoadedRuleset:
+    """Load the ruleset named by ``args.<attr>`` with the overlays the options ask for."""
+    return load_ruleset(getattr(args, attr), getattr(args, "overlay", ()) or (),
+                        beside=not getattr(args, "no_overlay", False))
+
+
+def _positive_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a number") from None
+    if not value > 0 or value == float("inf"):
+        raise argparse.ArgumentTypeError(f"'{text}' must be a positive number")
+    return value
+
+
+def _count(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"'{text}' must not be negative")
+    return value
+
+
+def _fraction(text: str) -> float:
+    value = _positive_float(text)
+    if value > 1:
+        raise argparse.ArgumentTypeError(f"'{text}' must be a fraction between 0 and 1")
+    return value
+
+
+# --------------------------------------------------------------------------- commands
 
 
 def _cmd_lint(args: argparse.Namespace) -> int:
@@ -48,7 +110,7 @@ def _cmd_predict(args: argparse.Namespace) -> int:
     from assistant.meter import load_meter_profile
     from assistant.predict import predict, prediction_json, prediction_text
 
-    loaded = _load_checked(args.ruleset)
+    loaded = check_ruleset(load_with_overlays(args))
     meter = load_meter_profile(args.meter) if args.meter else None
     table = predict(loaded, meter, samples=args.samples, seed=args.seed, cache=not args.no_cache)
     if args.json:
@@ -72,6 +134,205 @@ def _cmd_spice(args: argparse.Namespace) -> int:
         print(f"wrote {args.output}: state '{deck.state}', {args.fault or 'no fault'}; run: ngspice -b {args.output}")
     else:
         sys.stdout.write(deck.text)
+    return 0
+
+
+def _progress_bar(done: int, total: int) -> None:
+    width = 30
+    filled = width * done // max(total, 1)
+    end = "\n" if done >= total else ""
+    print(f"\r[{'#' * filled}{'.' * (width - filled)}] {done}/{total} runs", end=end, file=sys.stderr, flush=True)
+
+
+def _cmd_simulate(args: argparse.Namespace) -> int:
+    from assistant import predict as predict_module
+    from assistant.simulate import simulate
+
+    if args.trials < 1:
+        raise OhmtrailError(f"--trials must be at least 1, not {args.trials}")
+    loaded = _load_checked(args.ruleset)
+    table = predict_module.predict(loaded, seed=args.seed)
+    show_bar = not args.json and sys.stdout.isatty() and sys.stderr.isatty()
+    result = simulate(loaded, table, trials=args.trials, seed=args.seed, threshold=args.threshold,
+                      progress=_progress_bar if show_bar else None)
+    if args.json:
+        print(json.dumps(result.to_json(), indent=2))
+        return 0
+    optimum = result.optimal_noise_free_minutes
+    print(f"{result.ruleset}: {result.hypotheses} hypotheses x {result.trials} trials, "
+          f"threshold {result.threshold:g}, seed {result.seed}")
+    print(f"{'strategy':<14}{'accuracy':>10}{'tests':>8}{'minutes':>9}")
+    print(f"{'planner':<14}{result.accuracy:>10.3f}{result.mean_tests:>8.2f}{result.mean_minutes:>9.2f}")
+    for name, fig in (("linear walk", result.linear_walk), ("half-split", result.half_split)):
+        print(f"{name:<14}{fig.accuracy:>10.3f}{fig.mean_tests:>8.2f}{fig.mean_minutes:>9.2f}")
+    print(f"worst planner run: {result.worst_minutes:.1f} min")
+    print(f"noise-free: planner {result.planner_noise_free_minutes:.2f} min, optimum "
+          + (f"{optimum:.2f} min" if optimum is not None else "not found within 60 s"))
+    for group in result.ambiguity_groups:
+        print("no test tells apart: " + ", ".join(group))
+    return 0
+
+
+def _load_session(args: argparse.Namespace) -> SessionRecord:
+    from assistant.store import open_store
+
+    return open_store(args.db).load(args.session_id)
+
+
+def _emit(data: bytes, output: str | None, default_name: str) -> None:
+    """Write to ``-o FILE`` (``-`` for stdout) or to ``default_name`` here, and say where."""
+    if output == "-":
+        sys.stdout.buffer.write(data)
+        sys.stdout.flush()
+        return
+    path = write_output(Path(output or default_name), data)
+    print(path)
+
+
+def _cmd_trail(args: argparse.Namespace) -> int:
+    record = _load_session(args)
+    drawing = render_trail(record, args.format, session_names(record))
+    output = args.output
+    if drawing.hint and output not in (None, "-"):
+        output = str(Path(output).with_suffix(".dot"))
+    _emit(drawing.data, output, f"{output_stem(record.id)}-trail.{drawing.format}")
+    if drawing.hint:
+        print(f"ohmtrail: {drawing.hint}", file=sys.stderr)
+        return 1
+    return 0
+
+
+def _cmd_report(args: argparse.Namespace) -> int:
+    record = _load_session(args)
+    _emit(render_report(record, args.format, session_names(record)), args.output,
+          f"{output_stem(record.id)}-report.{args.format}")
+    return 0
+
+
+def _cmd_export(args: argparse.Namespace) -> int:
+    record = _load_session(args)
+    _emit(export_json(record).encode("utf-8"), args.output,
+          f"{output_stem(record.id)}-export.json")
+    return 0
+
+
+def _cmd_verify(args: argparse.Namespace) -> int:
+    result = verify_export(read_export(Path(args.file)))
+    if result.intact:
+        print(f"{args.file}: {result.message}")
+        return 0
+    place = f"{result.place}: " if result.place else ""
+    print(f"{args.file}: {place}{result.message}", file=sys.stderr)
+    return 1
+
+
+def _add_session_command(sub: argparse._SubParsersAction[argparse.ArgumentParser], name: str,
+                         help_text: str, description: str) -> argparse.ArgumentParser:
+    p = sub.add_parser(name, help=help_text, description=description)
+    p.add_argument("session_id", metavar="ID", help="the session id")
+    p.add_argument("-o", "--output", metavar="FILE",
+                   help="where to write ('-' for standard output; default: a file named after "
+                   "the session in the current folder)")
+    p.add_argument("--db", metavar="URL", help="session store URL (default: $OHMTRAIL_DB or the "
+                   "SQLite store in the user data folder)")
+    return p
+
+
+def _cmd_learn(args: argparse.Namespace) -> int:
+    loaded = load_ruleset(args.ruleset, beside=False)  # learn from the author's weights, not an old overlay
+    out = Path(args.output) if args.output else beside_path(args.ruleset)
+    if out.resolve() == Path(args.ruleset).resolve():
+        raise OutputError(f"{out}: that is the ruleset itself; an overlay is written beside it, never over it")
+    if out.suffix not in (".yaml", ".yml"):
+        raise OutputError(f"{out}: an overlay file name must end in .yaml")
+    repairs: list[Repair] = []
+    if args.history:
+        roots = args.rulesets or default_ruleset_roots(args.ruleset)
+        known = known_ruleset_ids(roots) | {loaded.ruleset.id}
+        repairs.extend(read_history(args.history, known))
+    if args.sessions or args.db:
+        repairs.extend(repairs_from_store(args.db))
+    if not args.history and not (args.sessions or args.db):
+        raise OhmtrailError("learn needs --history FILE, or --sessions / --db URL for the store's closed sessions")
+    result = learn(loaded.ruleset, repairs, args.strength)
+    for item in result.uncounted:
+        print(f"not counted: {item.source}: {item.fault_id} ({item.reason})")
+    if result.repairs == 0:
+        raise OhmtrailError(f"no repairs of ruleset '{loaded.ruleset.id}' to learn from; no overlay written")
+    rs = loaded.ruleset
+    total = rs.none_weight + sum(result.old.values())
+    print(f"{rs.id}: {result.repairs} repairs counted, prior strength {result.strength:g} pseudo-repairs")
+    print(f"{'fault':<34} {'repairs':>7} {'old weight':>10} {'new weight':>10} {'old prior':>9} {'new prior':>9}")
+    changed = result.changed()
+    for fault_id in changed:
+        old, new = result.old[fault_id], result.new[fault_id]
+        print(f"{fault_id:<34} {result.counts.get(fault_id, 0):>7} {old:>10.4g} {new:>10.4g} "
+              f"{old / total:>9.1%} {new / total:>9.1%}")
+    note = (f"learned by ohmtrail learn from {result.repairs} repairs"
+            f"{' in ' + Path(args.history).name if args.history else ''}, strength {result.strength:g}")
+    text = overlay_document(rs, result.new, ruleset_sha256=loaded.sha256, note=note)
+    try:
+        out.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise OutputError(f"{out}: cannot write: {exc.strerror or exc}") from exc
+    print(f"{len(changed)} weights changed; overlay written to {out}")
+    return 0
+
+
+def _cmd_new(args: argparse.Namespace) -> int:
+    target = write_scaffold(args.family, args.name, args.output)
+    print(f"wrote {target}: a {args.family} ruleset to adapt; then `ohmtrail lint {target}` and "
+          f"`ohmtrail check {target}`")
+    return 0
+
+
+def _cmd_graph(args: argparse.Namespace) -> int:
+    loaded = load_with_overlays(args)
+    graph = circuit_graph(loaded.ruleset, args.state)
+    out = args.output or f"{Path(args.ruleset).stem}{'-' + args.state if args.state else ''}.{args.format}"
+    drawing = render_graph(graph, args.format, out)
+    if drawing.hint:
+        print(drawing.hint, file=sys.stderr)
+    else:
+        print(f"wrote {drawing.path}")
+    return 0
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    report = check_paths(args.paths, default_predictor(args.samples, args.seed), beside=not args.no_overlay)
+    for problem in report.problems:
+        print(problem, file=sys.stderr)
+    for r in report.results:
+        if r.passed:
+            print(f"PASS  {r.ruleset_id}: {r.case_id}  ({r.diagnosis} {r.probability:.2f}; "
+                  f"{len(r.asked)} test{'s' if len(r.asked) != 1 else ''}, {r.minutes:g} min)")
+        else:
+            print(f"FAIL  {r.ruleset_id}: {r.case_id}")
+            for difference in r.differences:
+                print(f"      {difference}")
+            print(f"      asked: {', '.join(r.asked) or 'nothing'}")
+    for path in report.without_cases:
+        print(f"note: {path} has no cases")
+    failed = sum(not r.passed for r in report.results)
+    rulesets = report.files
+    line = (f"{len(report.results)} case{'s' if len(report.results) != 1 else ''} in {rulesets} "
+            f"ruleset{'s' if rulesets != 1 else ''}: {len(report.results) - failed} passed, {failed} failed")
+    if report.problems:
+        line += f"; {len(report.problems)} ruleset problem{'s' if len(report.problems) != 1 else ''}"
+    print(line, file=sys.stdout if report.ok else sys.stderr)
+    return 0 if report.ok else 1
+
+
+def _cmd_coverage(args: argparse.Namespace) -> int:
+    from assistant.predict import predict
+
+    loaded = check_ruleset(load_with_overlays(args))
+    table = predict(loaded, samples=args.samples, seed=args.seed)
+    result = coverage(loaded, table, runs=args.runs, seed=args.seed, separation=args.separation)
+    if args.json:
+        print(json.dumps(result.to_json(), indent=2))
+    else:
+        print(coverage_text(result))
     return 0
 
 
@@ -107,6 +368,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--samples", type=int, default=64, metavar="N", help="samples per hypothesis (default 64)")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.add_argument("--no-cache", action="store_true", help="compute afresh; neither read nor write the cache")
+    add_overlay_options(p)
     p.set_defaults(handler=_cmd_predict)
 
     p = sub.add_parser("spice", help="write a SPICE deck of the circuit as modelled",
@@ -118,6 +380,116 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--state", metavar="S", help="operating state (default: the ruleset's first)")
     p.add_argument("-o", "--output", metavar="FILE", help="write to FILE instead of standard output")
     p.set_defaults(handler=_cmd_spice)
+
+    p = sub.add_parser("simulate", help="simulate diagnoses of every fault and compare with the walks",
+                       description="For every hypothesis draw readings from the circuit model with "
+                       "meter noise, run the planner to its stop, and report accuracy, tests and "
+                       "minutes (prior-weighted) beside the linear walk, half-split and the noise-free "
+                       "optimum.")
+    p.add_argument("ruleset", metavar="RULESET", help="ruleset file")
+    p.add_argument("--trials", type=int, default=20, metavar="N", help="runs per hypothesis (default 20)")
+    p.add_argument("--seed", type=int, default=0, metavar="S", help="random seed (default 0)")
+    p.add_argument("--threshold", type=float, default=None, metavar="P",
+                   help="stop when a fault reaches P (default: the ruleset's threshold)")
+    p.add_argument("--json", action="store_true", help="print the figures as JSON")
+    p.set_defaults(handler=_cmd_simulate)
+
+    p = _add_session_command(
+        sub, "trail", "draw a session's decision trail",
+        "Draw the path a session took (complaint, each test with its reading against the healthy "
+        "range and the leading suspects, skipped and re-measured tests, rules fired, conclusion, "
+        "repair, verification) with graphviz. Without graphviz's dot program the DOT source is "
+        "written instead, with a hint, and the exit status is 1.")
+    p.add_argument("--format", choices=("svg", "pdf", "png", "dot"), default="svg",
+                   help="drawing format (default: svg)")
+    p.set_defaults(handler=_cmd_trail)
+
+    p = _add_session_command(
+        sub, "report", "write a session's claim report",
+        "Write the printable claim report of a session: vehicle, complaint, technician, meter, "
+        "ruleset and its hash, every step, the diagnosis and alternatives, repair, verification, "
+        "the trail, the cautions and the session digest. An open session is marked in progress.")
+    p.add_argument("--format", choices=("pdf", "html"), default="pdf",
+                   help="report format (default: pdf)")
+    p.set_defaults(handler=_cmd_report)
+
+    p = _add_session_command(
+        sub, "export", "export a session as sealed JSON",
+        "Write a session as JSON (export format 1, docs/export-format.md) with its hash chain and "
+        "session digest, for `ohmtrail verify`.")
+    p.set_defaults(handler=_cmd_export)
+
+    p = sub.add_parser("verify", help="check an exported session's hash chain",
+                       description="Recompute the hash chain and the session digest of an "
+                       "exported session. Prints 'intact' and exits 0, or names the first step "
+                       "or field that differs and exits 1.")
+    p.add_argument("file", metavar="FILE", help="a JSON file written by `ohmtrail export`")
+    p.set_defaults(handler=_cmd_verify)
+    p = sub.add_parser("check", help="run every ruleset's cases; exit 1 on any failure",
+                       description="Run the cases of every ruleset under the paths (default: rulesets/) "
+                       "through the diagnosis engine, answering each proposed test with the case's "
+                       "reading and skipping the others. Prints PASS or FAIL per case with what differs; "
+                       "exit 1 on any failure or any ruleset that cannot be run.")
+    p.add_argument("paths", nargs="*", metavar="PATH", default=["rulesets"])
+    p.add_argument("--samples", type=int, default=64, metavar="N", help="prediction samples per hypothesis")
+    p.add_argument("--seed", type=int, default=0, help="random seed of the predictions (default 0)")
+    p.add_argument("--no-overlay", action="store_true", help="ignore the NAME.overlay.yaml beside each ruleset")
+    p.set_defaults(handler=_cmd_check)
+
+    p = sub.add_parser("coverage", help="what a ruleset's tests can tell apart, and at what cost",
+                       description="Report, for each fault, whether any test tells it from every other "
+                       "(ambiguity groups), the expected minutes to isolate it in simulated diagnoses, "
+                       "the tests that never change any decision, the faults no complaint leads to, and "
+                       "the operating states the tests need. --json gives the shape in docs/authoring.md.")
+    p.add_argument("ruleset", metavar="RULESET")
+    p.add_argument("--json", action="store_true", help="print JSON")
+    p.add_argument("--runs", type=_count, default=4, metavar="N",
+                   help="simulated diagnoses per hypothesis (default 4; 0 skips the simulation)")
+    p.add_argument("--samples", type=int, default=64, metavar="N", help="prediction samples per hypothesis")
+    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--separation", type=_fraction, default=DEFAULT_SEPARATION, metavar="F",
+                   help="how much of two hypotheses' predicted readings must differ for a test to tell "
+                   f"them apart (default {DEFAULT_SEPARATION})")
+    add_overlay_options(p)
+    p.set_defaults(handler=_cmd_coverage)
+
+    p = sub.add_parser("learn", help="tune a ruleset's fault weights from the fleet's repair history",
+                       description="Count confirmed repairs (a history CSV, and/or the store's closed "
+                       "sessions) and write a priors overlay: the ruleset's fault weights updated by "
+                       "Dirichlet (additive) smoothing. Prints the old and new weight of every fault that "
+                       "changed. The ruleset file is never rewritten. CSV header: " + HISTORY_HEADER)
+    p.add_argument("ruleset", metavar="RULESET")
+    p.add_argument("--history", metavar="FILE", help="repair-history CSV file")
+    p.add_argument("--sessions", action="store_true", help="also count the closed sessions of the store")
+    p.add_argument("--db", metavar="URL", help="the session store to read (implies --sessions)")
+    p.add_argument("-o", "--output", metavar="OVERLAY",
+                   help="overlay file to write (default: NAME.overlay.yaml beside the ruleset, applied "
+                   "automatically from then on)")
+    p.add_argument("--strength", type=_positive_float, default=None, metavar="N",
+                   help="weight of the ruleset's own priors, in pseudo-repairs (default: the number of faults)")
+    p.add_argument("--rulesets", action="append", metavar="PATH",
+                   help="rulesets whose ids the history may also name (rows for them are skipped); default: "
+                   "the rulesets/ folder the ruleset is in")
+    p.set_defaults(handler=_cmd_learn)
+
+    p = sub.add_parser("new", help="write a commented starting ruleset for a circuit family",
+                       description="Write NAME.yaml: a commented starting ruleset for the family that "
+                       "lints clean and has one case, for the author to adapt. Never overwrites a file.")
+    p.add_argument("family", metavar="FAMILY", choices=FAMILIES, help=", ".join(FAMILIES))
+    p.add_argument("name", metavar="NAME", help="the new ruleset's id (and file name)")
+    p.add_argument("-o", "--output", metavar="FILE", help="where to write it (default: NAME.yaml)")
+    p.set_defaults(handler=_cmd_new)
+
+    p = sub.add_parser("graph", help="draw a ruleset's circuit as modelled",
+                       description="Draw the circuit of a ruleset with Graphviz: test points (nodes) with "
+                       "their tests, components with their values, and which states close each switch. "
+                       "Without the 'dot' program the DOT source is written instead, with a hint.")
+    p.add_argument("ruleset", metavar="RULESET")
+    p.add_argument("--format", choices=GRAPH_FORMATS, default="svg", help="output format (default svg)")
+    p.add_argument("-o", "--output", metavar="FILE", help="where to write it (default: NAME.FORMAT here)")
+    p.add_argument("--state", metavar="S", help="draw the contacts as this operating state sets them")
+    add_overlay_options(p)
+    p.set_defaults(handler=_cmd_graph)
     return parser
 
 

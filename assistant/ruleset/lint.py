@@ -92,8 +92,8 @@ class _Checker:
         if not self.faults:
             yield self.loc.problem("the ruleset has no fault with a positive weight", ("components",))
 
-    def _p(self, message: str, *path: str | int) -> Problem:
-        return self.loc.problem(message, path)
+    def _p(self, message: str, *path: str | int, at_key: bool = False) -> Problem:
+        return self.loc.problem(message, path, at_key=at_key)
 
     def _node(self, name: str | None, *path: str | int) -> Iterator[Problem]:
         if name is not None and name not in self.nodes:
@@ -134,8 +134,13 @@ class _Checker:
             for mode, spec in comp.faults.items():
                 if mode not in allowed_modes(comp.type):
                     yield self._p(f"a {comp.type} cannot have fault mode '{mode}'; it can have "
-                                  f"{sorted(allowed_modes(comp.type))}", "components", i, "faults", mode)
+                                  f"{sorted(allowed_modes(comp.type))}", "components", i, "faults", mode, at_key=True)
                 yield from self._node(spec.at, "components", i, "faults", mode, "at")
+                if spec.to is not None:
+                    if mode != "short_to_power":
+                        yield self._p(f"'to' applies only to short_to_power, not to '{mode}'", "components", i,
+                                      "faults", mode, "to")
+                    yield from self._node(spec.to, "components", i, "faults", mode, "to")
             if comp.type == "relay_contact":
                 coil = self.components.get(comp.coil)
                 if coil is None or coil.type != "relay_coil":
@@ -179,6 +184,12 @@ class _Checker:
             elif isinstance(test, CurrentTest):
                 if test.component not in self.components:
                     yield self._p(f"unknown component '{test.component}'", "tests", i, "component")
+                for j, ref in enumerate(test.isolate):
+                    if ref not in self.components:
+                        yield self._p(f"unknown component '{ref}'", "tests", i, "isolate", j)
+                    elif ref == test.component:
+                        yield self._p(f"'{ref}' is the component the current is read in; it cannot be "
+                                      "isolated too", "tests", i, "isolate", j)
             elif isinstance(test, FuseDropTest):
                 comp = self.components.get(test.fuse)
                 if comp is None or comp.type != "fuse":
@@ -223,32 +234,44 @@ class _Checker:
                 yield from self._test_ref(ref, "cases", i, "order", j)
 
     def _paths_to_ground(self) -> Iterator[Problem]:
-        """Each component must reach ground through conducting parts in at least one state."""
-        reached: set[str] = set()
-        for state in self.rs.states.values():
-            closed = set(state.closes)
-            parent: dict[str, str] = {}
+        """Each component must be part of a closed loop (a path back through ground) in some state.
 
-            def find(x: str) -> str:
-                while parent.setdefault(x, x) != x:
-                    parent[x] = parent[parent[x]]
-                    x = parent[x]
-                return x
+        A part is in a loop when its terminals stay joined through the other conducting parts
+        with the part itself taken out; a dangling branch fails this in every state. Switches
+        conduct in the states that close them; relay contacts are taken as closed (their coil
+        may pull them in).
+        """
+        closing: dict[str, set[str]] = {}
+        for name, state in self.rs.states.items():
+            for ref in state.closes:
+                closing.setdefault(ref, set()).add(name)
+        in_loop: set[str] = set()
+        for name, state in self.rs.states.items():
+            conducting = [c for c in self.rs.components if c.type != "switch" or c.id in state.closes]
+            for comp in conducting:
+                if comp.id in in_loop:
+                    continue
+                parent: dict[str, str] = {}
 
-            for comp in self.rs.components:
-                if comp.type == "switch" and comp.id not in closed:
-                    continue  # relay contacts are taken as closed: their coil may pull them in
-                first = comp.nodes[0]
-                for other in comp.nodes[1:]:
-                    parent[find(other)] = find(first)
-            ground = find(self.rs.ground)
-            for comp in self.rs.components:
-                if all(find(n) == ground for n in comp.nodes):
-                    reached.add(comp.id)
+                def find(x: str) -> str:
+                    while parent.setdefault(x, x) != x:
+                        parent[x] = parent[parent[x]]
+                        x = parent[x]
+                    return x
+
+                for other in conducting:
+                    if other is not comp:
+                        for node in other.nodes[1:]:
+                            parent[find(node)] = find(other.nodes[0])
+                if all(find(n) == find(comp.nodes[0]) for n in comp.nodes[1:]):
+                    in_loop.add(comp.id)
         for i, comp in enumerate(self.rs.components):
-            if comp.id not in reached:
-                yield self._p(f"component '{comp.id}' has no path to ground '{self.rs.ground}' in any state",
-                              "components", i, "nodes")
+            if comp.type == "switch" and comp.id not in closing:
+                yield self._p(f"switch '{comp.id}' is closed by no state (list it under a state's closes:)",
+                              "components", i, "id")
+            elif comp.id not in in_loop:
+                yield self._p(f"component '{comp.id}' has no path to ground in any state (it is in no closed "
+                              "loop)", "components", i, "nodes")
 
 
 def summary(result: LintResult) -> str:

@@ -36,7 +36,7 @@ class Dimension:
 
     name: str
     unit: str  # the unit the float is stored in
-    bare_scale: float = 1.0  # a bare number is in unit × bare_scale (mm² for areas)
+    bare_limit: float | None = None  # bare numbers above it must carry a unit (ambiguous)
 
 
 VOLTAGE = Dimension("voltage", "V")
@@ -44,7 +44,8 @@ RESISTANCE = Dimension("resistance", "ohm")
 CURRENT = Dimension("current", "A")
 POWER = Dimension("power", "W")
 LENGTH = Dimension("length", "m")
-AREA = Dimension("cross-section", "m**2", bare_scale=1e-6)  # bare numbers are mm²
+# A bare cross-section is in m² (as stored); "1.5" alone is refused: the author meant mm2.
+AREA = Dimension("cross-section", "m**2", bare_limit=1e-3)
 TIME_MINUTES = Dimension("time", "min")
 TEMPERATURE = Dimension("temperature", "degC")
 FRACTION = Dimension("fraction", "dimensionless")
@@ -83,7 +84,7 @@ def parse_quantity(value: Any, dim: Dimension) -> float:
         number = float(value)
         if not math.isfinite(number):
             raise QuantityError(f"expected a finite {dim.name}, got {value!r}", value=value)
-        return number * dim.bare_scale
+        return _bare(number, value, dim)
     if not isinstance(value, str):
         raise QuantityError(
             f"expected a {dim.name} such as '{_example(dim)}', got {type(value).__name__}",
@@ -105,7 +106,7 @@ def parse_quantity(value: Any, dim: Dimension) -> float:
     number = float(match.group(1))
     unit_text = match.group(2)
     if not unit_text:
-        return number * dim.bare_scale
+        return _bare(number, value, dim)
     unit_text = _SPELLINGS.get(unit_text, unit_text)
     unit_text = _POWER.sub(r"**\1", unit_text)
     ureg = registry()
@@ -129,6 +130,14 @@ def parse_quantity(value: Any, dim: Dimension) -> float:
     if not math.isfinite(result):
         raise QuantityError(f"'{value}' is not a finite {dim.name}", value=value)
     return result
+
+
+def _bare(number: float, value: Any, dim: Dimension) -> float:
+    if dim.bare_limit is not None and abs(number) > dim.bare_limit:
+        raise QuantityError(
+            f"'{value}' needs its unit, e.g. '{_example(dim)}'", value=value, expected=dim.unit
+        )
+    return number
 
 
 def _example(dim: Dimension) -> str:

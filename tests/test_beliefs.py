@@ -1,0 +1,150 @@
+"""Beliefs: the evidence model and the posterior, checked against pgmpy's exact inference."""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from assistant.beliefs import build_model, entropy_bits, format_value, normalise_log, posterior
+from assistant.errors import ReadingError
+from assistant.reading import Reading
+from synthetic_tables import tiny_lamp
+
+LOADED, TABLE = tiny_lamp()
+MODEL = build_model(TABLE)
+LOG_PRIOR = np.log(np.array([h.prior for h in TABLE.hypotheses]))
+
+
+def _t(test_id: str) -> int:
+    return TABLE.test_index(test_id)
+
+
+def test_outcome_rows_are_distributions() -> None:
+    for outcomes in MODEL.tests:
+        shown = outcomes.probs[:, outcomes.probs.sum(axis=0) > 0]  # an empty "elsewhere" column aside
+        assert shown.shape[1] >= outcomes.n_outcomes - 1
+        assert np.all(shown > 0)  # the outlier floor: nothing is impossible
+        np.testing.assert_allclose(outcomes.probs.sum(axis=1), 1.0, atol=1e-12)
+
+
+def test_reading_in_the_predicted_bin_is_likely() -> None:
+    outcomes = MODEL.tests[_t("v_feed")]
+    lik = outcomes.likelihood(Reading("12.30", value=12.30))
+    none, blown = TABLE.hypothesis_index("none"), TABLE.hypothesis_index("fuse.blown")
+    assert lik[none] > 100 * lik[blown]
+    # 0 V: the blown fuse and the open feed explain it, the healthy circuit does not
+    lik0 = outcomes.likelihood(Reading("0.00", value=0.0))
+    assert lik0[blown] > 100 * lik0[none]
+
+
+def test_overload_reading_goes_to_the_ol_column() -> None:
+    outcomes = MODEL.tests[_t("r_lamp")]
+    lik = outcomes.likelihood(Reading("OL", overload=True))
+    assert int(np.argmax(lik)) == TABLE.hypothesis_index("lamp.filament_open")
+
+
+def test_one_wild_reading_leaves_the_true_fault_possible() -> None:
+    # a probe that slipped: 5.3 V where no hypothesis predicts anything
+    p = posterior(LOG_PRIOR, MODEL, [(_t("v_feed"), Reading("5.3", value=5.3)),
+                                     (_t("r_lamp"), Reading("OL", overload=True))])
+    assert p[TABLE.hypothesis_index("lamp.filament_open")] > 0.5
+
+
+@pytest.mark.parametrize("test_id, reading, fragment", [
+    ("v_feed", Reading("yes", outcome="yes"), "needs a meter reading in V"),  # an answer for a meter test
+    ("look_fuse", Reading("3.2", value=3.2), "answered with one of"),  # a number for an observation
+    ("look_fuse", Reading("maybe", outcome="maybe"), "not an answer"),
+    ("v_feed", Reading("5000 V", value=5000.0), "beyond anything the meter can show"),
+])
+def test_readings_that_do_not_fit_the_test(test_id: str, reading: Reading, fragment: str) -> None:
+    with pytest.raises(ReadingError, match=fragment):
+        MODEL.tests[_t(test_id)].likelihood(reading)
+
+
+def test_normalise_log_handles_ruled_out_and_refuses_all_ruled_out() -> None:
+    p = normalise_log(np.array([-math.inf, 0.0, math.log(3.0)]))
+    np.testing.assert_allclose(p, [0.0, 0.25, 0.75])
+    with pytest.raises(ValueError):
+        normalise_log(np.array([-math.inf, -math.inf]))
+
+
+def test_entropy_bits_of_a_fair_coin() -> None:
+    assert entropy_bits(np.array([0.5, 0.5])) == pytest.approx(1.0)
+
+
+def test_format_value_follows_the_step() -> None:
+    assert format_value(12.434, "V", 0.01) == "12.43 V"
+    assert format_value(-0.0001, "V", 0.01) == "0.00 V"
+    assert format_value(math.inf, "ohm", 0.1) == "OL"
+
+
+def test_noise_free_model_is_one_hot_at_the_median() -> None:
+    nf = build_model(TABLE, noise_free=True)
+    outcomes = nf.tests[_t("v_feed")]
+    none = TABLE.hypothesis_index("none")
+    k = int(np.argmax(outcomes.probs[none]))
+    assert outcomes.probs[none, k] == 1.0
+    assert outcomes.centre(k) == pytest.approx(float(np.median(TABLE.samples[none, _t("v_feed")])), rel=0.002)
+
+
+readings = st.one_of(
+    st.floats(min_value=-20, max_value=20, allow_nan=False).map(lambda v: ("v", v)),
+    st.just(("ol", None)),
+)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.tuples(st.sampled_from(["v_feed", "drop_gnd", "r_lamp", "look_fuse"]), readings,
+                          st.sampled_from(["yes", "no"])), max_size=6))
+def test_posterior_is_always_a_distribution(answers: list) -> None:  # type: ignore[type-arg]
+    """Property: whatever the readings, the posterior is a distribution without NaN."""
+    answered = []
+    for test_id, (kind, value), outcome in answers:
+        if test_id == "look_fuse":
+            r = Reading(outcome, outcome=outcome)
+        elif kind == "ol":
+            r = Reading("OL", overload=True)
+        else:
+            r = Reading(str(value), value=value)
+        answered.append((_t(test_id), r))
+    p = posterior(LOG_PRIOR, MODEL, answered)
+    assert not np.isnan(p).any()
+    assert np.all(p >= 0)
+    assert p.sum() == pytest.approx(1.0, abs=1e-12)
+
+
+def test_posterior_equals_pgmpy_variable_elimination() -> None:
+    """Reference: pgmpy VariableElimination (exact inference) on the same discrete model, to 1e-9."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # pgmpy's own import-time deprecation notices
+        from pgmpy.factors.discrete import TabularCPD
+        from pgmpy.inference import VariableElimination
+        from pgmpy.models import DiscreteBayesianNetwork
+
+    answers = {"look_fuse": Reading("no", outcome="no"), "v_feed": Reading("12.52", value=12.52),
+               "drop_gnd": Reading("0.01", value=0.01), "r_lamp": Reading("14.2", value=14.2)}
+    prior = np.array([h.prior for h in TABLE.hypotheses])
+    n_h = prior.size
+    edges = [("H", f"T_{t}") for t in answers]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        net = DiscreteBayesianNetwork(edges)
+        cpds = [TabularCPD("H", n_h, prior.reshape(n_h, 1))]
+        evidence = {}
+        for test_id, reading in answers.items():
+            outcomes = MODEL.tests[_t(test_id)]
+            cpds.append(TabularCPD(f"T_{test_id}", outcomes.n_outcomes, outcomes.probs.T,
+                                   evidence=["H"], evidence_card=[n_h]))
+            k = outcomes.outcome_index(reading)
+            assert k is not None
+            evidence[f"T_{test_id}"] = k
+        net.add_cpds(*cpds)
+        result = VariableElimination(net).query(["H"], evidence=evidence, show_progress=False)
+    ours = posterior(np.log(prior), MODEL, [(_t(k), r) for k, r in answers.items()])
+    np.testing.assert_allclose(ours, result.values, rtol=0, atol=1e-9)
+    assert ours[TABLE.hypothesis_index("lamp.high_resistance")] > 0.9
