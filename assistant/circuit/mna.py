@@ -3,9 +3,10 @@
 The method is modified nodal analysis (Ho, Ruehli & Brennan, IEEE Trans. Circuits and
 Systems, 1975). A *batch* is B variants of the same netlist (fault hypotheses × tolerance
 samples): every element holds one value per variant, and an element can be absent in some
-variants (an open is a removed element, not a large resistance). All B systems share one sparsity pattern; small ones are solved
-as one stacked array by LAPACK, larger ones by one sparse elimination plan carried out for all
-variants at once (``elimination.py``), with a pivoting LU for any variant it hands back.
+variants (an open is a removed element, not a large resistance). All B systems share one
+sparsity pattern; small ones are solved as one stacked array by LAPACK, larger ones by one
+sparse elimination plan carried out for all variants at once (``elimination.py``), with a
+pivoting LU for any variant it hands back.
 
 The primitives are deliberately few; every component type reduces to them (see
 ``components.py``):
