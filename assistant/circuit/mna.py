@@ -391,12 +391,11 @@ def _island_heads(island: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     floating = island > 0
     if not floating.any():
         return np.zeros(0, dtype=int), np.zeros(0, dtype=int)
-    # a node is the head of its island when no lower node carries the same label
-    first = np.zeros_like(floating)
-    for i in range(1, n):
-        same_before = (island[:, :i] == island[:, i : i + 1]).any(axis=1)
-        first[:, i] = floating[:, i] & ~same_before
-    return np.nonzero(first)
+    # labels are numbered in order of their first node, so a node heads its island exactly when
+    # its label exceeds every label before it
+    before = np.zeros_like(island)
+    before[:, 1:] = np.maximum.accumulate(island[:, :-1], axis=1)
+    return np.nonzero(floating & (island > before))
 
 
 def _check_zero_ohm_loops(net: Netlist) -> None:
