@@ -18,6 +18,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from weakref import WeakKeyDictionary
 
 import numpy as np
 
@@ -170,13 +171,30 @@ def total_variation(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return 0.5 * np.abs(a - b).sum(axis=-1)
 
 
+_FARTHEST: WeakKeyDictionary[EvidenceModel, dict[int, np.ndarray]] = WeakKeyDictionary()
+
+
+def _farthest(model: EvidenceModel, h: int) -> np.ndarray:
+    """Largest total-variation distance over all tests between ``h`` and each hypothesis (cached)."""
+    cache = _FARTHEST.setdefault(model, {})
+    found = cache.get(h)
+    if found is None:
+        found = np.zeros(model.n_hypotheses)
+        for outcomes in model.tests:
+            np.maximum(found, total_variation(outcomes.model, outcomes.model[h][None, :]), out=found)
+        cache[h] = found
+    return found
+
+
 def indistinguishable(model: EvidenceModel, h: int, among: Sequence[int] | np.ndarray,
                       tests: Sequence[int] | None = None,
                       tolerance: float = AMBIGUITY_TOLERANCE) -> np.ndarray:
     """Those of ``among`` that no test in ``tests`` (default: all) tells apart from ``h``."""
     idx = np.asarray(among, dtype=int)
+    if tests is None:
+        return idx[_farthest(model, h)[idx] < tolerance]
     same = np.ones(idx.size, dtype=bool)
-    for t in range(len(model.tests)) if tests is None else tests:
+    for t in tests:
         rows = model.tests[t].model
         same &= total_variation(rows[idx], rows[h][None, :]) < tolerance
     return idx[same]
