@@ -114,15 +114,14 @@ def _alive(p: np.ndarray) -> np.ndarray:
 
 def expected_gain(p: np.ndarray, outcomes: TestOutcomes, alive: np.ndarray | None = None) -> float:
     """Mutual information (bits) between the hypothesis (distribution ``p``) and the outcome."""
-    idx = _alive(p) if alive is None else alive
-    q = p[idx] / p[idx].sum()
-    probs = outcomes.probs[idx]
-    logs = outcomes.log2probs[idx]
-    pk = q @ probs
-    with np.errstate(divide="ignore", invalid="ignore"):  # 0 log 0 = 0 in noise-free models
-        log_pk = np.log2(pk)
-        terms = np.where(probs > 0, probs * (logs - log_pk[None, :]), 0.0)
-    return max(0.0, float(q @ terms.sum(axis=1)))
+    # I = sum_h q_h sum_k P_hk log P_hk - sum_k P_k log P_k, with the first sum kept per row
+    q = np.where(p > ALIVE, p, 0.0) if alive is None else np.zeros_like(p)
+    if alive is not None:
+        q[alive] = p[alive]
+    q = q / q.sum()
+    pk = q @ outcomes.probs
+    pk = pk[pk > 0]
+    return max(0.0, float(q @ outcomes.row_negentropy - pk @ np.log2(pk)))
 
 
 def gains(p: np.ndarray, model: EvidenceModel, tests: Sequence[int]) -> np.ndarray:
