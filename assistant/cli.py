@@ -15,18 +15,75 @@ from pathlib import Path
 
 from assistant import __version__
 from assistant.errors import LocatedError, OhmtrailError, OutputError
+from assistant.cases import check_paths, default_predictor
+from assistant.coverage import DEFAULT_SEPARATION, coverage, coverage_text
 from assistant.export import export_json, read_export, verify_export
+from assistant.history import HEADER as HISTORY_HEADER
+from assistant.history import Repair, default_ruleset_roots, known_ruleset_ids, read_history, repairs_from_store
+from assistant.learn import learn
+from assistant.netgraph import FORMATS as GRAPH_FORMATS
+from assistant.netgraph import circuit_graph, render_graph
+from assistant.overlay import beside_path, overlay_document
 from assistant.record import SessionRecord
-from assistant.report import output_stem, render_report, write_output
+from assistant.report import output_stem, render_report, session_names, write_output
 from assistant.ruleset import lint_paths
 from assistant.ruleset.lint import check_ruleset, summary
 from assistant.ruleset.load import LoadedRuleset, load_ruleset
+from assistant.scaffold import FAMILIES, write_scaffold
 from assistant.ruleset.model import Ruleset
 from assistant.trail import render_trail
 
 log = logging.getLogger("ohmtrail.cli")
 
 Handler = Callable[[argparse.Namespace], int]
+
+
+# --------------------------------------------------------------------------- shared options
+
+
+def add_overlay_options(p: argparse.ArgumentParser) -> None:
+    """Give a command that loads a RULESET the priors-overlay options (``--overlay``, ``--no-overlay``)."""
+    p.add_argument("--overlay", action="append", default=[], metavar="FILE",
+                   help="apply this priors overlay after the ruleset's own NAME.overlay.yaml (repeatable; "
+                   "later ones win)")
+    p.add_argument("--no-overlay", action="store_true",
+                   help="ignore the NAME.overlay.yaml beside the ruleset")
+
+
+def load_with_overlays(args: argparse.Namespace, attr: str = "ruleset") -> LoadedRuleset:
+    """Load the ruleset named by ``args.<attr>`` with the overlays the options ask for."""
+    return load_ruleset(getattr(args, attr), getattr(args, "overlay", ()) or (),
+                        beside=not getattr(args, "no_overlay", False))
+
+
+def _positive_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a number") from None
+    if not value > 0 or value == float("inf"):
+        raise argparse.ArgumentTypeError(f"'{text}' must be a positive number")
+    return value
+
+
+def _count(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"'{text}' must not be negative")
+    return value
+
+
+def _fraction(text: str) -> float:
+    value = _positive_float(text)
+    if value > 1:
+        raise argparse.ArgumentTypeError(f"'{text}' must be a fraction between 0 and 1")
+    return value
+
+
+# --------------------------------------------------------------------------- commands
 
 
 def _cmd_lint(args: argparse.Namespace) -> int:
@@ -53,7 +110,7 @@ def _cmd_predict(args: argparse.Namespace) -> int:
     from assistant.meter import load_meter_profile
     from assistant.predict import predict, prediction_json, prediction_text
 
-    loaded = _load_checked(args.ruleset)
+    loaded = check_ruleset(load_with_overlays(args))
     meter = load_meter_profile(args.meter) if args.meter else None
     table = predict(loaded, meter, samples=args.samples, seed=args.seed, cache=not args.no_cache)
     if args.json:
@@ -134,7 +191,7 @@ def _emit(data: bytes, output: str | None, default_name: str) -> None:
 
 def _cmd_trail(args: argparse.Namespace) -> int:
     record = _load_session(args)
-    drawing = render_trail(record, args.format)
+    drawing = render_trail(record, args.format, session_names(record))
     output = args.output
     if drawing.hint and output not in (None, "-"):
         output = str(Path(output).with_suffix(".dot"))
@@ -147,7 +204,7 @@ def _cmd_trail(args: argparse.Namespace) -> int:
 
 def _cmd_report(args: argparse.Namespace) -> int:
     record = _load_session(args)
-    _emit(render_report(record, args.format), args.output,
+    _emit(render_report(record, args.format, session_names(record)), args.output,
           f"{output_stem(record.id)}-report.{args.format}")
     return 0
 
@@ -179,6 +236,104 @@ def _add_session_command(sub: argparse._SubParsersAction[argparse.ArgumentParser
     p.add_argument("--db", metavar="URL", help="session store URL (default: $OHMTRAIL_DB or the "
                    "SQLite store in the user data folder)")
     return p
+
+
+def _cmd_learn(args: argparse.Namespace) -> int:
+    loaded = load_ruleset(args.ruleset, beside=False)  # learn from the author's weights, not an old overlay
+    out = Path(args.output) if args.output else beside_path(args.ruleset)
+    if out.resolve() == Path(args.ruleset).resolve():
+        raise OutputError(f"{out}: that is the ruleset itself; an overlay is written beside it, never over it")
+    if out.suffix not in (".yaml", ".yml"):
+        raise OutputError(f"{out}: an overlay file name must end in .yaml")
+    repairs: list[Repair] = []
+    if args.history:
+        roots = args.rulesets or default_ruleset_roots(args.ruleset)
+        known = known_ruleset_ids(roots) | {loaded.ruleset.id}
+        repairs.extend(read_history(args.history, known))
+    if args.sessions or args.db:
+        repairs.extend(repairs_from_store(args.db))
+    if not args.history and not (args.sessions or args.db):
+        raise OhmtrailError("learn needs --history FILE, or --sessions / --db URL for the store's closed sessions")
+    result = learn(loaded.ruleset, repairs, args.strength)
+    for item in result.uncounted:
+        print(f"not counted: {item.source}: {item.fault_id} ({item.reason})")
+    if result.repairs == 0:
+        raise OhmtrailError(f"no repairs of ruleset '{loaded.ruleset.id}' to learn from; no overlay written")
+    rs = loaded.ruleset
+    total = rs.none_weight + sum(result.old.values())
+    print(f"{rs.id}: {result.repairs} repairs counted, prior strength {result.strength:g} pseudo-repairs")
+    print(f"{'fault':<34} {'repairs':>7} {'old weight':>10} {'new weight':>10} {'old prior':>9} {'new prior':>9}")
+    changed = result.changed()
+    for fault_id in changed:
+        old, new = result.old[fault_id], result.new[fault_id]
+        print(f"{fault_id:<34} {result.counts.get(fault_id, 0):>7} {old:>10.4g} {new:>10.4g} "
+              f"{old / total:>9.1%} {new / total:>9.1%}")
+    note = (f"learned by ohmtrail learn from {result.repairs} repairs"
+            f"{' in ' + Path(args.history).name if args.history else ''}, strength {result.strength:g}")
+    text = overlay_document(rs, result.new, ruleset_sha256=loaded.sha256, note=note)
+    try:
+        out.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise OutputError(f"{out}: cannot write: {exc.strerror or exc}") from exc
+    print(f"{len(changed)} weights changed; overlay written to {out}")
+    return 0
+
+
+def _cmd_new(args: argparse.Namespace) -> int:
+    target = write_scaffold(args.family, args.name, args.output)
+    print(f"wrote {target}: a {args.family} ruleset to adapt; then `ohmtrail lint {target}` and "
+          f"`ohmtrail check {target}`")
+    return 0
+
+
+def _cmd_graph(args: argparse.Namespace) -> int:
+    loaded = load_with_overlays(args)
+    graph = circuit_graph(loaded.ruleset, args.state)
+    out = args.output or f"{Path(args.ruleset).stem}{'-' + args.state if args.state else ''}.{args.format}"
+    drawing = render_graph(graph, args.format, out)
+    if drawing.hint:
+        print(drawing.hint, file=sys.stderr)
+    else:
+        print(f"wrote {drawing.path}")
+    return 0
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    report = check_paths(args.paths, default_predictor(args.samples, args.seed), beside=not args.no_overlay)
+    for problem in report.problems:
+        print(problem, file=sys.stderr)
+    for r in report.results:
+        if r.passed:
+            print(f"PASS  {r.ruleset_id}: {r.case_id}  ({r.diagnosis} {r.probability:.2f}; "
+                  f"{len(r.asked)} test{'s' if len(r.asked) != 1 else ''}, {r.minutes:g} min)")
+        else:
+            print(f"FAIL  {r.ruleset_id}: {r.case_id}")
+            for difference in r.differences:
+                print(f"      {difference}")
+            print(f"      asked: {', '.join(r.asked) or 'nothing'}")
+    for path in report.without_cases:
+        print(f"note: {path} has no cases")
+    failed = sum(not r.passed for r in report.results)
+    rulesets = report.files
+    line = (f"{len(report.results)} case{'s' if len(report.results) != 1 else ''} in {rulesets} "
+            f"ruleset{'s' if rulesets != 1 else ''}: {len(report.results) - failed} passed, {failed} failed")
+    if report.problems:
+        line += f"; {len(report.problems)} ruleset problem{'s' if len(report.problems) != 1 else ''}"
+    print(line, file=sys.stdout if report.ok else sys.stderr)
+    return 0 if report.ok else 1
+
+
+def _cmd_coverage(args: argparse.Namespace) -> int:
+    from assistant.predict import predict
+
+    loaded = check_ruleset(load_with_overlays(args))
+    table = predict(loaded, samples=args.samples, seed=args.seed)
+    result = coverage(loaded, table, runs=args.runs, seed=args.seed, separation=args.separation)
+    if args.json:
+        print(json.dumps(result.to_json(), indent=2))
+    else:
+        print(coverage_text(result))
+    return 0
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -213,6 +368,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--samples", type=int, default=64, metavar="N", help="samples per hypothesis (default 64)")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.add_argument("--no-cache", action="store_true", help="compute afresh; neither read nor write the cache")
+    add_overlay_options(p)
     p.set_defaults(handler=_cmd_predict)
 
     p = sub.add_parser("spice", help="write a SPICE deck of the circuit as modelled",
@@ -269,6 +425,71 @@ def build_parser() -> argparse.ArgumentParser:
                        "or field that differs and exits 1.")
     p.add_argument("file", metavar="FILE", help="a JSON file written by `ohmtrail export`")
     p.set_defaults(handler=_cmd_verify)
+    p = sub.add_parser("check", help="run every ruleset's cases; exit 1 on any failure",
+                       description="Run the cases of every ruleset under the paths (default: rulesets/) "
+                       "through the diagnosis engine, answering each proposed test with the case's "
+                       "reading and skipping the others. Prints PASS or FAIL per case with what differs; "
+                       "exit 1 on any failure or any ruleset that cannot be run.")
+    p.add_argument("paths", nargs="*", metavar="PATH", default=["rulesets"])
+    p.add_argument("--samples", type=int, default=64, metavar="N", help="prediction samples per hypothesis")
+    p.add_argument("--seed", type=int, default=0, help="random seed of the predictions (default 0)")
+    p.add_argument("--no-overlay", action="store_true", help="ignore the NAME.overlay.yaml beside each ruleset")
+    p.set_defaults(handler=_cmd_check)
+
+    p = sub.add_parser("coverage", help="what a ruleset's tests can tell apart, and at what cost",
+                       description="Report, for each fault, whether any test tells it from every other "
+                       "(ambiguity groups), the expected minutes to isolate it in simulated diagnoses, "
+                       "the tests that never change any decision, the faults no complaint leads to, and "
+                       "the operating states the tests need. --json gives the shape in docs/authoring.md.")
+    p.add_argument("ruleset", metavar="RULESET")
+    p.add_argument("--json", action="store_true", help="print JSON")
+    p.add_argument("--runs", type=_count, default=4, metavar="N",
+                   help="simulated diagnoses per hypothesis (default 4; 0 skips the simulation)")
+    p.add_argument("--samples", type=int, default=64, metavar="N", help="prediction samples per hypothesis")
+    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--separation", type=_fraction, default=DEFAULT_SEPARATION, metavar="F",
+                   help="how much of two hypotheses' predicted readings must differ for a test to tell "
+                   f"them apart (default {DEFAULT_SEPARATION})")
+    add_overlay_options(p)
+    p.set_defaults(handler=_cmd_coverage)
+
+    p = sub.add_parser("learn", help="tune a ruleset's fault weights from the fleet's repair history",
+                       description="Count confirmed repairs (a history CSV, and/or the store's closed "
+                       "sessions) and write a priors overlay: the ruleset's fault weights updated by "
+                       "Dirichlet (additive) smoothing. Prints the old and new weight of every fault that "
+                       "changed. The ruleset file is never rewritten. CSV header: " + HISTORY_HEADER)
+    p.add_argument("ruleset", metavar="RULESET")
+    p.add_argument("--history", metavar="FILE", help="repair-history CSV file")
+    p.add_argument("--sessions", action="store_true", help="also count the closed sessions of the store")
+    p.add_argument("--db", metavar="URL", help="the session store to read (implies --sessions)")
+    p.add_argument("-o", "--output", metavar="OVERLAY",
+                   help="overlay file to write (default: NAME.overlay.yaml beside the ruleset, applied "
+                   "automatically from then on)")
+    p.add_argument("--strength", type=_positive_float, default=None, metavar="N",
+                   help="weight of the ruleset's own priors, in pseudo-repairs (default: the number of faults)")
+    p.add_argument("--rulesets", action="append", metavar="PATH",
+                   help="rulesets whose ids the history may also name (rows for them are skipped); default: "
+                   "the rulesets/ folder the ruleset is in")
+    p.set_defaults(handler=_cmd_learn)
+
+    p = sub.add_parser("new", help="write a commented starting ruleset for a circuit family",
+                       description="Write NAME.yaml: a commented starting ruleset for the family that "
+                       "lints clean and has one case, for the author to adapt. Never overwrites a file.")
+    p.add_argument("family", metavar="FAMILY", choices=FAMILIES, help=", ".join(FAMILIES))
+    p.add_argument("name", metavar="NAME", help="the new ruleset's id (and file name)")
+    p.add_argument("-o", "--output", metavar="FILE", help="where to write it (default: NAME.yaml)")
+    p.set_defaults(handler=_cmd_new)
+
+    p = sub.add_parser("graph", help="draw a ruleset's circuit as modelled",
+                       description="Draw the circuit of a ruleset with Graphviz: test points (nodes) with "
+                       "their tests, components with their values, and which states close each switch. "
+                       "Without the 'dot' program the DOT source is written instead, with a hint.")
+    p.add_argument("ruleset", metavar="RULESET")
+    p.add_argument("--format", choices=GRAPH_FORMATS, default="svg", help="output format (default svg)")
+    p.add_argument("-o", "--output", metavar="FILE", help="where to write it (default: NAME.FORMAT here)")
+    p.add_argument("--state", metavar="S", help="draw the contacts as this operating state sets them")
+    add_overlay_options(p)
+    p.set_defaults(handler=_cmd_graph)
     return parser
 
 

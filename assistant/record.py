@@ -72,6 +72,9 @@ class SessionRecord(Record):
     ruleset_id: str
     ruleset_version: str
     ruleset_sha256: str
+    ruleset_path: str | None = None  # the file it was loaded from, to resume the session
+    source: str | None = None  # where the readings came from: "prompt", "answers FILE", "simulate FAULT seed S"
+    threshold: float | None = None  # the probability at which the planner stops, if not the ruleset's
     overlays: tuple[str, ...] = ()
     meter_profile: str = "default"
     technician: str | None = None
@@ -85,6 +88,7 @@ class SessionRecord(Record):
     diagnosis: str | None = None
     probability: float | None = None
     alternatives: tuple[tuple[str, float], ...] = ()
+    ambiguity_group: tuple[str, ...] = ()  # faults no test of the ruleset tells from the diagnosis (it first)
     stopped_because: str | None = None
     repair: str | None = None
     verification: str | None = None

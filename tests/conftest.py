@@ -1,8 +1,10 @@
-"""Shared fixtures: paths to the bundled rulesets and a way to write mutated copies."""
+"""Shared fixtures: paths to the bundled rulesets, a way to write mutated copies, PostgreSQL."""
 
 from __future__ import annotations
 
-from collections.abc import Callable
+import os
+import uuid
+from collections.abc import Callable, Iterator
 from pathlib import Path
 
 import pytest
@@ -31,3 +33,51 @@ def write_copy(tmp_path: Path, stop_lamps_text: str) -> Callable[..., Path]:
         return path
 
     return write
+
+
+# --------------------------------------------------------------------------- PostgreSQL
+
+PG_URL_VARIABLE = "OHMTRAIL_TEST_PG_URL"
+
+
+def _under_ci() -> bool:
+    return os.environ.get("CI", "").lower() not in ("", "0", "false", "no")
+
+
+@pytest.fixture(scope="session")
+def pg_server_url() -> str:
+    """URL of the test PostgreSQL server (tools/ensure-postgres.sh starts one and prints it).
+
+    Absent: the test skips on a developer's machine, and fails under CI, where the server must run.
+    """
+    url = os.environ.get(PG_URL_VARIABLE, "").strip()
+    if not url:
+        message = f"{PG_URL_VARIABLE} is not set (run `make test`, or `make postgres` and export its URL)"
+        if _under_ci():
+            pytest.fail(f"PostgreSQL is required under CI: {message}")
+        pytest.skip(message)
+    return url
+
+
+@pytest.fixture
+def pg_url(pg_server_url: str) -> Iterator[str]:
+    """A fresh, empty PostgreSQL database for one test, dropped afterwards."""
+    import sqlalchemy as sa
+
+    admin = sa.create_engine(pg_server_url, isolation_level="AUTOCOMMIT")
+    name = f"ohmtrail_t_{uuid.uuid4().hex[:12]}"
+    try:
+        with admin.connect() as conn:
+            conn.execute(sa.text(f'CREATE DATABASE "{name}"'))
+    except sa.exc.OperationalError as exc:
+        admin.dispose()
+        if _under_ci():
+            pytest.fail(f"PostgreSQL at {PG_URL_VARIABLE} cannot be reached: {exc}")
+        pytest.skip(f"PostgreSQL at {PG_URL_VARIABLE} cannot be reached")
+    url = sa.engine.make_url(pg_server_url).set(database=name)
+    try:
+        yield url.render_as_string(hide_password=False)
+    finally:
+        with admin.connect() as conn:
+            conn.execute(sa.text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
+        admin.dispose()

@@ -113,6 +113,7 @@ class Fault:
     repair: str
     repair_minutes: float
     description: str | None = None
+    to: str | None = None  # short_to_power only: the node shorted to (None: the ruleset's power node)
 
 
 def fault_list(ruleset: Ruleset) -> tuple[Fault, ...]:
@@ -144,6 +145,7 @@ def fault_list(ruleset: Ruleset) -> tuple[Fault, ...]:
                     repair=repair.action if repair else default.repair,
                     repair_minutes=repair.minutes if repair else default.repair_minutes,
                     description=spec.description if spec is not None else None,
+                    to=spec.to if spec is not None else None,
                 )
             )
     return tuple(faults)

@@ -136,6 +136,11 @@ class _Checker:
                     yield self._p(f"a {comp.type} cannot have fault mode '{mode}'; it can have "
                                   f"{sorted(allowed_modes(comp.type))}", "components", i, "faults", mode, at_key=True)
                 yield from self._node(spec.at, "components", i, "faults", mode, "at")
+                if spec.to is not None:
+                    if mode != "short_to_power":
+                        yield self._p(f"'to' applies only to short_to_power, not to '{mode}'", "components", i,
+                                      "faults", mode, "to")
+                    yield from self._node(spec.to, "components", i, "faults", mode, "to")
             if comp.type == "relay_contact":
                 coil = self.components.get(comp.coil)
                 if coil is None or coil.type != "relay_coil":
@@ -179,6 +184,12 @@ class _Checker:
             elif isinstance(test, CurrentTest):
                 if test.component not in self.components:
                     yield self._p(f"unknown component '{test.component}'", "tests", i, "component")
+                for j, ref in enumerate(test.isolate):
+                    if ref not in self.components:
+                        yield self._p(f"unknown component '{ref}'", "tests", i, "isolate", j)
+                    elif ref == test.component:
+                        yield self._p(f"'{ref}' is the component the current is read in; it cannot be "
+                                      "isolated too", "tests", i, "isolate", j)
             elif isinstance(test, FuseDropTest):
                 comp = self.components.get(test.fuse)
                 if comp is None or comp.type != "fuse":

@@ -125,6 +125,11 @@ class FaultSpec(Frozen):
     at: Identifier | None = Field(
         default=None, description="for shorts: the node that is shorted (default: the component's last node)"
     )
+    to: Identifier | None = Field(
+        default=None,
+        description="for short_to_power: the node the short goes to (default: the ruleset's power node), "
+        "e.g. a module's 5 V reference for a signal wire shorted to it",
+    )
     repair: Repair | None = None
     description: str | None = None
 
@@ -410,6 +415,10 @@ class CurrentTest(TestBase):
     kind: Literal["current"]
     component: Identifier
     jack: Literal["auto", "10A", "mA", "clamp"] = "auto"
+    isolate: tuple[Identifier, ...] = Field(
+        default=(), description="components taken out of the circuit while the current is read (a fuse "
+        "pulled while the total key-off draw is watched)"
+    )
 
 
 class FuseDropTest(TestBase):
