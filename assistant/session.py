@@ -414,6 +414,19 @@ def summary_json(record: SessionRecord) -> dict[str, Any]:
             "stopped_because": record.stopped_because}
 
 
+def session_json(record: SessionRecord) -> dict[str, Any]:
+    """A stored session for ``ohmtrail sessions --json``: its header and every step, briefly."""
+    steps = [{"index": s.index, "kind": s.kind, "at": s.at, "test": s.test_id,
+              "reading": s.reading if s.reading is not None else s.reading_text, "unit": s.unit,
+              "verdict": s.verdict, "note": s.note} for s in record.steps]
+    return {"id": record.id, "ruleset": record.ruleset_id, "ruleset_version": record.ruleset_version,
+            "source": record.source, "vehicle": record.vehicle.model_dump(), "technician": record.technician,
+            "complaint": record.complaint, "fault_codes": list(record.fault_codes), "started": record.started,
+            "finished": record.finished, "status": record.status, "step_count": len(record.steps),
+            "diagnosis": record.diagnosis, "probability": record.probability,
+            "ambiguity_group": list(record.ambiguity_group), "steps": steps}
+
+
 def vehicle_text(vehicle: VehicleInfo) -> str:
     """The vehicle in a few words for lists and headers."""
     parts = []
