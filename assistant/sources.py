@@ -284,8 +284,12 @@ class SimulatedSource:
     def _draw(self, hypothesis: int, test_id: str, sample: int | None = None) -> Reading:
         from assistant.simulate import draw_reading  # the diagnosis engine's meter model
 
-        return draw_reading(self.table, hypothesis, self.table.test_index(test_id), self.rng,
-                            sample=self.sample if sample is None else sample)
+        reading = draw_reading(self.table, hypothesis, self.table.test_index(test_id), self.rng,
+                               sample=self.sample if sample is None else sample)
+        if reading.value is None:
+            return reading
+        # Quantised to the display (0.0272, not 0.027200000000000002), as the meter shows it.
+        return Reading(text=reading.text, value=float(f"{reading.value:.12g}"))
 
     def ask(self, question: Question) -> Action:
         return Answer(reading=self._draw(self.hypothesis, question.test.id))
