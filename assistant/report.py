@@ -24,6 +24,7 @@ from assistant import __version__
 from assistant import cautions as caution_texts
 from assistant.display import (
     clean_text,
+    complaint_text,
     format_probability,
     format_range,
     format_reading,
@@ -148,7 +149,7 @@ def report_content(record: SessionRecord, names: Mapping[str, str] | None = None
              ("Finished", format_stamp(record.finished) or "not yet"),
              ("Technician", clean_text(record.technician or "") or "not given"),
              *_vehicle_facts(record),
-             ("Complaint", clean_text(record.complaint or "") or "not given"),
+             ("Complaint", complaint_text(record) or "not given"),
              ("Fault codes", ", ".join(clean_text(c) for c in record.fault_codes)
               or "none recorded"),
              ("Meter profile", clean_text(record.meter_profile)),
