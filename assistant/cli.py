@@ -182,7 +182,8 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
 def _load_session(args: argparse.Namespace) -> SessionRecord:
     from assistant.store import open_store
 
-    return open_store(args.db).load(args.session_id)
+    store = open_store(args.db)
+    return store.load(store.find(args.session_id))  # an id or a unique prefix of one
 
 
 def _emit(data: bytes, output: str | None, default_name: str) -> None:
@@ -235,7 +236,7 @@ def _cmd_verify(args: argparse.Namespace) -> int:
 def _add_session_command(sub: argparse._SubParsersAction[argparse.ArgumentParser], name: str,
                          help_text: str, description: str) -> argparse.ArgumentParser:
     p = sub.add_parser(name, help=help_text, description=description)
-    p.add_argument("session_id", metavar="ID", help="the session id")
+    p.add_argument("session_id", metavar="ID", help="the session id (or a unique start of it)")
     p.add_argument("-o", "--output", metavar="FILE",
                    help="where to write ('-' for standard output; default: a file named after "
                    "the session in the current folder)")
