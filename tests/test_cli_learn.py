@@ -101,3 +101,19 @@ def test_never_writes_over_the_ruleset(ruleset: Path, tmp_path: Path, capsys: py
 def test_learn_needs_a_source(ruleset: Path, capsys: pytest.CaptureFixture[str]) -> None:
     assert main(["learn", str(ruleset)]) == 1
     assert "needs --history FILE" in capsys.readouterr().err
+
+
+def test_closed_sessions_of_the_store_count(ruleset: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    from assistant.record import SessionRecord
+    from assistant.store import open_store
+
+    url = f"sqlite:///{tmp_path / 'sessions.db'}"
+    with open_store(url) as db:
+        for i in range(3):
+            db.create(SessionRecord(id=f"s{i}", ruleset_id="stop_lamps", ruleset_version="1.0.0",
+                                    ruleset_sha256="0" * 64, started="2026-05-01T08:00:00Z", status="closed",
+                                    diagnosis="c40.high_resistance", repair="Cleaned C40"))
+    assert main(["learn", str(ruleset), "--db", url]) == 0
+    out = capsys.readouterr().out
+    assert "3 repairs counted" in out
+    assert next(ln for ln in out.splitlines() if ln.startswith("c40.high_resistance ")).split()[1] == "3"
