@@ -25,7 +25,7 @@ from assistant.netgraph import FORMATS as GRAPH_FORMATS
 from assistant.netgraph import circuit_graph, render_graph
 from assistant.overlay import beside_path, overlay_document
 from assistant.record import SessionRecord
-from assistant.report import output_stem, render_report, write_output
+from assistant.report import output_stem, render_report, session_names, write_output
 from assistant.ruleset import lint_paths
 from assistant.ruleset.lint import check_ruleset, summary
 from assistant.ruleset.load import LoadedRuleset, load_ruleset
@@ -137,6 +137,42 @@ def _cmd_spice(args: argparse.Namespace) -> int:
     return 0
 
 
+def _progress_bar(done: int, total: int) -> None:
+    width = 30
+    filled = width * done // max(total, 1)
+    end = "\n" if done >= total else ""
+    print(f"\r[{'#' * filled}{'.' * (width - filled)}] {done}/{total} runs", end=end, file=sys.stderr, flush=True)
+
+
+def _cmd_simulate(args: argparse.Namespace) -> int:
+    from assistant import predict as predict_module
+    from assistant.simulate import simulate
+
+    if args.trials < 1:
+        raise OhmtrailError(f"--trials must be at least 1, not {args.trials}")
+    loaded = _load_checked(args.ruleset)
+    table = predict_module.predict(loaded, seed=args.seed)
+    show_bar = not args.json and sys.stdout.isatty() and sys.stderr.isatty()
+    result = simulate(loaded, table, trials=args.trials, seed=args.seed, threshold=args.threshold,
+                      progress=_progress_bar if show_bar else None)
+    if args.json:
+        print(json.dumps(result.to_json(), indent=2))
+        return 0
+    optimum = result.optimal_noise_free_minutes
+    print(f"{result.ruleset}: {result.hypotheses} hypotheses x {result.trials} trials, "
+          f"threshold {result.threshold:g}, seed {result.seed}")
+    print(f"{'strategy':<14}{'accuracy':>10}{'tests':>8}{'minutes':>9}")
+    print(f"{'planner':<14}{result.accuracy:>10.3f}{result.mean_tests:>8.2f}{result.mean_minutes:>9.2f}")
+    for name, fig in (("linear walk", result.linear_walk), ("half-split", result.half_split)):
+        print(f"{name:<14}{fig.accuracy:>10.3f}{fig.mean_tests:>8.2f}{fig.mean_minutes:>9.2f}")
+    print(f"worst planner run: {result.worst_minutes:.1f} min")
+    print(f"noise-free: planner {result.planner_noise_free_minutes:.2f} min, optimum "
+          + (f"{optimum:.2f} min" if optimum is not None else "not found within 60 s"))
+    for group in result.ambiguity_groups:
+        print("no test tells apart: " + ", ".join(group))
+    return 0
+
+
 def _load_session(args: argparse.Namespace) -> SessionRecord:
     from assistant.store import open_store
 
@@ -155,7 +191,7 @@ def _emit(data: bytes, output: str | None, default_name: str) -> None:
 
 def _cmd_trail(args: argparse.Namespace) -> int:
     record = _load_session(args)
-    drawing = render_trail(record, args.format)
+    drawing = render_trail(record, args.format, session_names(record))
     output = args.output
     if drawing.hint and output not in (None, "-"):
         output = str(Path(output).with_suffix(".dot"))
@@ -168,7 +204,7 @@ def _cmd_trail(args: argparse.Namespace) -> int:
 
 def _cmd_report(args: argparse.Namespace) -> int:
     record = _load_session(args)
-    _emit(render_report(record, args.format), args.output,
+    _emit(render_report(record, args.format, session_names(record)), args.output,
           f"{output_stem(record.id)}-report.{args.format}")
     return 0
 
@@ -344,6 +380,20 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--state", metavar="S", help="operating state (default: the ruleset's first)")
     p.add_argument("-o", "--output", metavar="FILE", help="write to FILE instead of standard output")
     p.set_defaults(handler=_cmd_spice)
+
+    p = sub.add_parser("simulate", help="simulate diagnoses of every fault and compare with the walks",
+                       description="For every hypothesis draw readings from the circuit model with "
+                       "meter noise, run the planner to its stop, and report accuracy, tests and "
+                       "minutes (prior-weighted) beside the linear walk, half-split and the noise-free "
+                       "optimum.")
+    p.add_argument("ruleset", metavar="RULESET", help="ruleset file")
+    p.add_argument("--trials", type=int, default=20, metavar="N", help="runs per hypothesis (default 20)")
+    p.add_argument("--seed", type=int, default=0, metavar="S", help="random seed (default 0)")
+    p.add_argument("--threshold", type=float, default=None, metavar="P",
+                   help="stop when a fault reaches P (default: the ruleset's threshold)")
+    p.add_argument("--json", action="store_true", help="print the figures as JSON")
+    p.set_defaults(handler=_cmd_simulate)
+
     p = _add_session_command(
         sub, "trail", "draw a session's decision trail",
         "Draw the path a session took (complaint, each test with its reading against the healthy "

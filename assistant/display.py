@@ -10,6 +10,8 @@ import re
 from datetime import datetime, timezone
 
 from assistant.record import Step
+from assistant.ruleset.defaults import fault_list
+from assistant.ruleset.model import Ruleset
 
 _UNIT_SYMBOL = {"ohm": "Ω", "ohms": "Ω", "Ω": "Ω", "v": "V", "a": "A"}
 # (factor, prefix) from large to small; the first whose scaled value is at least 1 is used.
@@ -116,3 +118,15 @@ def clean_text(text: str) -> str:
 def format_suspects(top: tuple[tuple[str, float], ...], count: int = 3) -> str:
     """The leading suspects as one line: ``"a 93.0 % · b 5.0 %"``."""
     return " · ".join(f"{clean_text(h)} {format_probability(p)}" for h, p in top[:count])
+
+
+def ruleset_names(ruleset: Ruleset) -> dict[str, str]:
+    """What to call a ruleset's tests and faults: test titles, "component label: fault mode"."""
+    names: dict[str, str] = {"none": "no fault"}
+    labels = {c.id: c.label or c.id for c in ruleset.components}
+    for fault in fault_list(ruleset):
+        names[fault.id] = f"{labels.get(fault.component, fault.component)}: " \
+                          f"{fault.mode.replace('_', ' ')}"
+    for test in ruleset.tests:
+        names[test.id] = test.title or test.id
+    return names

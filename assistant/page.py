@@ -353,11 +353,11 @@ def hypothesis_label(ruleset: Ruleset, hypothesis_id: str) -> str:
 # --------------------------------------------------------------------------- text
 
 
-def render_page(question: Question) -> str:
+def render_page(question: Question, heading: str | None = None) -> str:
     """A test page as text, for the terminal or a narrated session."""
     page = question.page
-    lines = [f"-- Test {question.answered + 1}: {page.title} [{page.test_id}]"
-             f"{' (again)' if page.remeasure else ''} --"]
+    heading = heading or f"Test {question.answered + 1}"
+    lines = [f"-- {heading}: {page.title} [{page.test_id}]{' (again)' if page.remeasure else ''} --"]
     lines.append(f"Measure: {page.what}")
     for where in page.where:
         lines.append(f"  at {where}")

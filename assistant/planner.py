@@ -118,9 +118,9 @@ def expected_gain(p: np.ndarray, outcomes: TestOutcomes, alive: np.ndarray | Non
     probs = outcomes.probs[idx]
     logs = outcomes.log2probs[idx]
     pk = q @ probs
-    with np.errstate(divide="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore"):  # 0 log 0 = 0 in noise-free models
         log_pk = np.log2(pk)
-    terms = np.where(probs > 0, probs * (logs - log_pk[None, :]), 0.0)
+        terms = np.where(probs > 0, probs * (logs - log_pk[None, :]), 0.0)
     return max(0.0, float(q @ terms.sum(axis=1)))
 
 
@@ -274,7 +274,9 @@ def expected_reading(model: EvidenceModel, h: int, t: int) -> str:
     if fin.size == 0:
         return "OL" if over else "-OL"
     lo, med, hi = np.percentile(fin, [5, 50, 95])
-    step = outcomes.step
+    res = np.asarray(model.table.resolution[h, t, :], dtype=float)
+    res = res[np.isfinite(res) & (res > 0)]
+    step = float(np.median(res)) if res.size else None
     text = format_value(float(med), info.unit, step)
     if format_value(float(lo), info.unit, step) != format_value(float(hi), info.unit, step):
         text += f" ({format_value(float(lo), '', step)} to {format_value(float(hi), info.unit, step)})"
@@ -291,7 +293,7 @@ def _outcome_classes(p: np.ndarray, outcomes: TestOutcomes, ids: Sequence[str], 
     classes: list[tuple[list[int], float]] = []
     k = 0
     n = outcomes.n_outcomes
-    value_bins = 0 if outcomes.is_observation else outcomes.n_bins
+    value_bins = 0 if outcomes.is_observation else outcomes.n_values
     while k < n:
         run = [k]
         if k < value_bins:
@@ -309,9 +311,8 @@ def _outcome_classes(p: np.ndarray, outcomes: TestOutcomes, ids: Sequence[str], 
         if len(run) == 1 or outcomes.is_observation:
             label = outcomes.label(run[0])
         else:
-            step = outcomes.step
-            lo = outcomes.centre(run[0]) - step / 2
-            hi = outcomes.centre(run[-1]) + step / 2
+            step = outcomes.width(run[0])
+            lo, hi = outcomes.bounds(run[0])[0], outcomes.bounds(run[-1])[1]
             unit = outcomes.test.unit
             label = f"{format_value(lo, '', step)} to {format_value(hi, unit, step)}"
         effects.append(OutcomeEffect(label, mass, tuple((ids[h], float(after[h])) for h in order)))

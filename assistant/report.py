@@ -29,11 +29,13 @@ from assistant.display import (
     format_stamp,
     format_stamp_short,
     format_suspects,
+    ruleset_names,
 )
-from assistant.errors import IntegrityError, OutputError
+from assistant.errors import IntegrityError, OhmtrailError, OutputError
 from assistant.export import check_record, export_json, export_session
 from assistant.record import SessionRecord, Step
 from assistant.report_pdf import pdf_from_content
+from assistant.ruleset import load_ruleset
 from assistant.trail import Drawing, render_trail
 
 log = logging.getLogger("ohmtrail.report")
@@ -85,6 +87,7 @@ class ReportContent:
     integrity_problem: str | None
     facts: tuple[tuple[str, str], ...]
     diagnosis: str
+    diagnosis_id: str | None  # the fault id, when the diagnosis is shown by its name
     diagnosis_probability: str
     stopped_because: str
     alternatives: tuple[tuple[str, str], ...]
@@ -172,6 +175,8 @@ def report_content(record: SessionRecord, names: Mapping[str, str] | None = None
         facts=tuple(facts),
         diagnosis=(_name(record.diagnosis, names) if record.diagnosis
                    else "no diagnosis yet" if in_progress else "no fault certain enough"),
+        diagnosis_id=(clean_text(record.diagnosis) if record.diagnosis
+                      and _name(record.diagnosis, names) != record.diagnosis else None),
         diagnosis_probability=format_probability(record.probability),
         stopped_because=clean_text(record.stopped_because or ""),
         alternatives=tuple((_name(h, names), format_probability(p)) for h, p in record.alternatives),
@@ -227,6 +232,8 @@ def report_html(record: SessionRecord, names: Mapping[str, str] | None = None) -
     parts.append("</table><h2>Diagnosis</h2>")
     prob = f" ({_e(c.diagnosis_probability)})" if c.diagnosis_probability else ""
     parts.append(f'<p class="diagnosis">{_e(c.diagnosis)}{prob}</p>')
+    if c.diagnosis_id:
+        parts.append(f"<p>Fault id: <code>{_e(c.diagnosis_id)}</code></p>")
     if c.stopped_because:
         parts.append(f"<p>Stopped because: {_e(c.stopped_because)}</p>")
     if c.alternatives:
@@ -263,7 +270,7 @@ def report_pdf(record: SessionRecord, names: Mapping[str, str] | None = None) ->
     drawing = render_trail(record, "png", names)
     return pdf_from_content(report_content(record, names),
                             drawing.data if drawing.format == "png" else None,
-                            drawing.hint)
+                            drawing.hint, drawing.node_spans)
 
 
 def render_report(record: SessionRecord, fmt: str = "pdf",
@@ -291,12 +298,36 @@ def output_stem(session_id: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", session_id).strip("._") or "session"
 
 
+def session_names(record: SessionRecord) -> dict[str, str]:
+    """Test titles and fault names from the ruleset file the session used, if it is unchanged.
+
+    Empty (so that ids are shown) when the record names no file, the file cannot be loaded,
+    or its SHA-256 differs from the one recorded: names from another version could mislead.
+    """
+    path = getattr(record, "ruleset_path", None)
+    if not path:
+        return {}
+    try:
+        loaded = load_ruleset(path)
+    except OhmtrailError as exc:
+        log.info("ruleset %s not loaded for names (%s); ids shown", path, exc)
+        return {}
+    if loaded.sha256 != record.ruleset_sha256:
+        log.warning("%s has changed since session %s was recorded; test and fault ids shown",
+                    path, record.id)
+        return {}
+    return ruleset_names(loaded.ruleset)
+
+
 def write_outputs(record: SessionRecord, folder: Path,
                   names: Mapping[str, str] | None = None) -> list[Path]:
     """Write a session's trail (SVG), report (PDF and HTML) and JSON export into ``folder``.
 
     Returns the paths written. Without graphviz's ``dot`` the trail is written as DOT source.
+    ``names`` defaults to :func:`session_names` of the record.
     """
+    if names is None:
+        names = session_names(record)
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:

@@ -296,6 +296,9 @@ class Session:
             verdict=verdict(reading, page), top=self._top(),
         )
         self._answers.append(step.index)
+        lead, p = step.top[0] if step.top else ("-", 0.0)
+        source.tell(f"recorded {test.id}: {shown_reading(step)}" + (f" ({step.verdict})" if step.verdict else "")
+                    + f"; leading suspect {lead} {p:.0%}")
         self._fired(source)
         conflict = getattr(self.diagnosis, "conflict", None)
         if conflict is not None:

@@ -144,6 +144,7 @@ class _Ruleset:
     title: str = "fake circuit"
     complaints: tuple[Any, ...] = ()
     rules: tuple[Any, ...] = ()
+    components: tuple[Any, ...] = ()
 
 
 @dataclass(frozen=True)

@@ -198,22 +198,71 @@ def test_without_dot_the_report_says_why_the_drawing_is_missing(
 
 
 @needs_dot
-def test_a_long_trail_is_cut_into_page_high_slices() -> None:
+def test_a_long_trail_is_cut_between_nodes_into_page_high_slices() -> None:
     from reportlab.platypus import Image
 
-    from assistant.report_pdf import FRAME_HEIGHT, FRAME_WIDTH, _trail_slices
+    from assistant.report_pdf import FRAME_HEIGHT, FRAME_WIDTH, _cut_rows, _trail_slices
     from assistant.trail import render_trail
 
     record = load_session()
     steps = [record.steps[0]] + [s.model_copy(update={"index": i})
                                  for i, s in enumerate(list(record.steps[2:11]) * 4, start=1)]
     long = record.model_copy(update={"steps": tuple(steps), "status": "open"})
-    slices = _trail_slices(render_trail(long, "png").data)
+    drawing = render_trail(long, "png")
+    assert drawing.node_spans  # one span per node, as fractions of the picture's height
+    assert all(0.0 <= a < b <= 1.0 for a, b in drawing.node_spans)
+    slices = _trail_slices(drawing.data, drawing.node_spans)
     assert len(slices) >= 2
     assert all(isinstance(s, Image) and s.drawHeight <= FRAME_HEIGHT for s in slices)
     assert all(s.drawWidth <= FRAME_WIDTH + 0.01 for s in slices)
+    height = 10_000
+    for cut in _cut_rows(height, drawing.node_spans, 2_000):
+        assert not any(a * height <= cut <= b * height for a, b in drawing.node_spans)
+
+
+def test_cut_rows_fall_between_spans_and_respect_the_limit() -> None:
+    from assistant.report_pdf import _cut_rows
+
+    spans = [(0.0, 0.18), (0.2, 0.38), (0.4, 0.58), (0.6, 0.78), (0.8, 1.0)]
+    cuts = _cut_rows(1000, spans, 300)
+    assert cuts == [196, 396, 596, 796]  # the lowest free row under each limit (3 rows clear)
+    assert _cut_rows(1000, [], 300) == [300, 600, 900]  # no spans known: cut at the limit
+    assert _cut_rows(200, spans, 300) == []
 
 
 def test_an_unknown_report_format_is_a_clear_error() -> None:
     with pytest.raises(OutputError, match="unknown report format"):
         render_report(load_session(), "docx")
+
+
+STOP_LAMPS = Path(__file__).parent.parent / "rulesets" / "lamp" / "stop_lamps.yaml"
+needs_ruleset_path = pytest.mark.skipif("ruleset_path" not in SessionRecord.model_fields,
+                                        reason="the record has no ruleset_path field yet")
+
+
+def test_ruleset_names_cover_every_test_and_fault() -> None:
+    from assistant.display import ruleset_names
+    from assistant.ruleset import fault_list, load_ruleset
+
+    ruleset = load_ruleset(STOP_LAMPS).ruleset
+    names = ruleset_names(ruleset)
+    assert set(names) == {"none"} | {f.id for f in fault_list(ruleset)} | {t.id for t in ruleset.tests}
+    assert names["w_left_gnd.high_resistance"] == "left lamp ground wire, black: high resistance"
+    assert names["drop_left_ground"] == "Voltage drop on the left lamp's ground side"
+
+
+@needs_ruleset_path
+def test_the_report_names_tests_and_faults_from_the_unchanged_ruleset(tmp_path: Path) -> None:
+    from assistant.report import session_names
+
+    record = load_session().model_copy(update={"ruleset_path": str(STOP_LAMPS)})
+    names = session_names(record)
+    page = report_html(record, names)
+    assert "left lamp ground wire, black: high resistance (98.1 %)" in page
+    assert "Fault id: <code>w_left_gnd.high_resistance</code>" in page
+    assert "reading: Voltage drop on the left lamp&#x27;s ground side" in page
+    # a ruleset file that changed since the session, or is gone, gives ids instead
+    changed = tmp_path / "stop_lamps.yaml"
+    changed.write_text(STOP_LAMPS.read_text("utf-8") + "\n# edited\n", encoding="utf-8")
+    assert session_names(record.model_copy(update={"ruleset_path": str(changed)})) == {}
+    assert session_names(record.model_copy(update={"ruleset_path": str(tmp_path / "no")})) == {}

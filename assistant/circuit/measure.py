@@ -10,8 +10,9 @@
 - ``resistance``: the de-energised circuit (sources out, ``isolate`` taken out, or ``only`` the
   parts named, on the bench), driven by the meter's own source between the two nodes, plus the
   test leads; no path is OL.
-- ``current``: the meter in series at the part's first node with its shunt burden; the jack as
-  the test asks, or chosen from the current expected with no fault; a clamp above the jack.
+- ``current``: the meter in series at the part's first node with its shunt burden (``isolate``
+  taken out); the jack as the test asks, or chosen from the current expected with no fault; a
+  clamp above the jack. The leads are placed so the no-fault current reads positive.
 - ``observation``: no meter; the author's P(outcome) rows, picked by fault id, then component
   id, then ``default``.
 """
@@ -146,25 +147,34 @@ class CurrentMeasurement(Measurement):
     def points(self) -> tuple[str, ...]:
         return (self.test.component,)
 
-    def jack(self, env: Env) -> str:
-        running = env.points[self.state].current(self.test.component)[env.reference]
-        expected = float(np.median(running)) if running.size else None
-        return choose_jack(env.meter, expected, self.test.jack)
+    @property
+    def isolate(self) -> tuple[str, ...]:
+        return tuple(getattr(self.test, "isolate", ()) or ())
 
     def display(self, env: Env) -> Display:
-        if self.test.component not in self.model.by_id:
-            raise CircuitError(f"test '{self.test.id}' names '{self.test.component}', not in the circuit")
-        jack = self.jack(env)
+        part = self.test.component
+        if part not in self.model.by_id:
+            raise CircuitError(f"test '{self.test.id}' names '{part}', not in the circuit")
+        base = env.points[self.state]
+        if self.isolate:
+            base = operate(self.model, env.batch, self.state, blown=env.blown, isolate=self.isolate)
+        healthy = base.current(part)[env.reference]
+        expected = float(np.median(healthy)) if healthy.size else 0.0
+        # the leads go so that the healthy current reads positive (red on the supply side)
+        sign = -1.0 if expected < 0 else 1.0
+        jack = choose_jack(env.meter, expected, self.test.jack)
         scales_ = jack_scales(env.meter, jack)  # type: ignore[arg-type]
         accuracy = current_accuracy(env.meter, jack)  # type: ignore[arg-type]
         if jack == "clamp":
-            return show(env.points[self.state].current(self.test.component), scales_, accuracy)
+            return show(sign * base.current(part), scales_, accuracy)
+        # auto-ranging within the jack: each range has its own shunt, so solve with each and
+        # keep, per variant, the lowest range that holds the current it lets through
         chosen: np.ndarray | None = None
         found = np.zeros(env.batch.size, dtype=bool)
         for sc in scales_:
-            point = operate(self.model, env.batch, self.state, blown=env.blown,
-                            shunt=Shunt(self.test.component, sc.burden))
-            amps = point.current(METER)
+            point = operate(self.model, env.batch, self.state, blown=env.blown, isolate=self.isolate,
+                            shunt=Shunt(part, sc.burden))
+            amps = sign * point.current(METER)
             chosen = amps if chosen is None else np.where(found, chosen, amps)
             found |= np.abs(amps) <= sc.limit
         assert chosen is not None

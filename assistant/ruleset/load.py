@@ -2,15 +2,23 @@
 
 Every way a file can be wrong ends in a :class:`RulesetError` whose problems carry the file,
 line and column (1-based) and the field path: YAML syntax, duplicate keys (an error, never
-"last one wins"), an empty or binary file, a value of the wrong type or dimension, a YAML tag
-that would build an object. The parser is ruamel.yaml in YAML 1.2 mode, so ``no`` stays the
-text "no" and ``010`` is ten, not eight.
+"last one wins"), an empty, binary or oversized file, a value of the wrong type or dimension, a
+YAML tag that would build an object. The parser is ruamel.yaml in YAML 1.2 mode, so ``no`` stays
+the text "no" and ``010`` is ten, not eight; a ``%YAML 1.1`` directive cannot switch that off.
+
+A ruleset is data: only YAML's core kinds (mappings, sequences, text, numbers, booleans, null)
+pass; any other tag (``!!python/object...``, ``!!binary``, ``!!set``, ``!custom``) is refused
+where it stands, and so are numbers that are not finite, text with control characters or lone
+surrogates, nesting deeper than any ruleset needs, and aliases that expand past a fixed budget
+(an "exponential entity" file). These limits were found by fuzzing (docs/reliability.md).
 """
 
 from __future__ import annotations
 
 import datetime as _dt
 import hashlib
+import math
+import re
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -18,13 +26,26 @@ from typing import Any
 
 from pydantic import ValidationError
 from ruamel.yaml import YAML
-from ruamel.yaml.comments import CommentedMap, CommentedSeq
+from ruamel.yaml.comments import CommentedMap, CommentedSeq, TaggedScalar
 from ruamel.yaml.error import MarkedYAMLError, YAMLError
 
 from assistant.errors import Problem, RulesetError
 from assistant.ruleset.model import Ruleset
 
 RULESET_SUFFIXES = (".yaml", ".yml")
+
+# Limits a real ruleset stays far below (the bundled ones: tens of KB, depth < 10, a few
+# thousand values); past them a file is a mistake or an attack, refused with a message.
+MAX_FILE_BYTES = 1024 * 1024
+MAX_DEPTH = 64
+MAX_VALUES = 200_000
+# C0 and C1 control characters other than tab, newline and carriage return: they would reach
+# the terminal, the drawing and the report as escape sequences. Lone surrogates cannot be
+# encoded as UTF-8 at all (the store, the export and the report would fail on them later).
+_BAD_CHARS = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f\ud800-\udfff]")
+_YAML_DIRECTIVE = re.compile(r"^%YAML[ \t]+(\S+)", re.MULTILINE)
+_LONG_NUMBER = re.compile(r"\d{4000,}")
+_BRACKET = re.compile(r"[\[\]{}]")
 
 
 @dataclass(frozen=True, eq=False)
@@ -144,6 +165,9 @@ def read_text(path: Path, error: type[RulesetError] = RulesetError) -> tuple[byt
         raise error("is a folder, not a file", file=name) from exc
     except OSError as exc:
         raise error(f"cannot be read: {exc.strerror or exc}", file=name) from exc
+    if len(data) > MAX_FILE_BYTES:
+        raise error(f"is {len(data) // 1024} KB; a ruleset file is at most {MAX_FILE_BYTES // 1024} KB",
+                    file=name, line=1, column=1)
     if b"\x00" in data:
         raise error("is a binary file, not YAML text", file=name, line=1, column=1)
     try:
@@ -160,6 +184,16 @@ def read_text(path: Path, error: type[RulesetError] = RulesetError) -> tuple[byt
 
 def parse_yaml(text: str, name: str, error: type[RulesetError] = RulesetError) -> Any:
     """The ruamel round-trip tree of a YAML text, or a located error."""
+    for match in _YAML_DIRECTIVE.finditer(text):
+        if match.group(1) != "1.2":
+            line, col = _offset_position(text, match.start(1))
+            raise error(f"YAML: only YAML 1.2 is read (this file asks for %YAML {match.group(1)[:20]}); "
+                        "remove the directive", file=name, line=line, column=col)
+    deep = _too_deep_at(text)
+    if deep is not None:
+        line, col = _offset_position(text, deep)
+        raise error(f"YAML: brackets nested deeper than a ruleset can be (at most {MAX_DEPTH} levels)",
+                    file=name, line=line, column=col)
     try:
         tree = _yaml().load(text)
     except MarkedYAMLError as exc:
@@ -169,12 +203,49 @@ def parse_yaml(text: str, name: str, error: type[RulesetError] = RulesetError) -
             message = f"duplicate key: {_duplicate_key(exc)}"
         line = mark.line + 1 if mark else None
         col = mark.column + 1 if mark else None
-        raise error(f"YAML: {message}", file=name, line=line, column=col) from exc
+        raise error(f"YAML: {_one_line(message)}", file=name, line=line, column=col) from exc
     except YAMLError as exc:
-        raise error(f"YAML: {exc}", file=name, line=1, column=1) from exc
-    except (ValueError, TypeError, RecursionError) as exc:  # ruamel's own faults on odd input
-        raise error(f"YAML could not be read: {exc}", file=name, line=1, column=1) from exc
+        raise error(f"YAML: {_one_line(str(exc))}", file=name, line=1, column=1) from exc
+    except RecursionError as exc:
+        raise error(f"YAML: nested deeper than a ruleset can be (at most {MAX_DEPTH} levels)", file=name,
+                    line=1, column=1) from exc
+    except (ValueError, TypeError, OverflowError) as exc:  # ruamel's own faults on odd input
+        long_number = _LONG_NUMBER.search(text)
+        if long_number:
+            line, col = _offset_position(text, long_number.start())
+            raise error("a number with thousands of digits is not a value of a ruleset", file=name,
+                        line=line, column=col) from exc
+        raise error(f"YAML could not be read: {_one_line(str(exc))}", file=name, line=1, column=1) from exc
     return tree
+
+
+def _too_deep_at(text: str) -> int | None:
+    """Offset where ``[``/``{`` nesting first passes MAX_DEPTH, counted naively, else None.
+
+    ruamel's scanner takes time quadratic in the flow nesting depth (seconds at a thousand
+    levels), so such a file is refused before it is parsed. Brackets inside quotes count too:
+    a real ruleset never comes near the limit either way.
+    """
+    depth = 0
+    for match in _BRACKET.finditer(text):
+        if match.group() in "[{":
+            depth += 1
+            if depth > MAX_DEPTH:
+                return match.start()
+        elif depth:
+            depth -= 1
+    return None
+
+
+def _offset_position(text: str, offset: int) -> tuple[int, int]:
+    line = text.count("\n", 0, offset) + 1
+    return line, offset - (text.rfind("\n", 0, offset) + 1) + 1
+
+
+def _one_line(message: str) -> str:
+    """A parser message on one line, without ruamel's 'in "<unicode string>", position N'."""
+    message = re.sub(r'\s*in "<unicode string>", (line \d+, column \d+|position \d+)', "", message)
+    return " ".join(message.split())
 
 
 def _duplicate_key(exc: MarkedYAMLError) -> str:
@@ -185,36 +256,77 @@ def _duplicate_key(exc: MarkedYAMLError) -> str:
 
 
 def to_plain(node: Any, locator: Locator, path: tuple[str | int, ...] = ()) -> Any:
-    """Plain dicts, lists and scalars from the ruamel tree; tags and odd types are errors."""
-    tag = getattr(getattr(node, "tag", None), "value", None)
-    if tag is not None and not str(tag).startswith("tag:yaml.org,2002:"):
-        raise RulesetError.from_problems([locator.problem(f"YAML tag '{tag}' is not allowed in a ruleset", path)])
-    if isinstance(node, CommentedMap):
-        out: dict[str, Any] = {}
-        for key, value in node.items():
-            if not isinstance(key, str):
-                raise RulesetError.from_problems(
-                    [locator.problem(f"key {key!r} must be text (quote it)", path + (key,), key)]
-                )
-            out[key] = to_plain(value, locator, path + (key,))
-        return out
-    if isinstance(node, CommentedSeq):
-        return [to_plain(v, locator, path + (i,)) for i, v in enumerate(node)]
-    if node is None or isinstance(node, bool):
-        return node
-    if isinstance(node, int):
-        return int(node)
-    if isinstance(node, float):
-        return float(node)
-    if isinstance(node, str):
-        return str(node)
-    if isinstance(node, (_dt.date, _dt.datetime)):
-        raise RulesetError.from_problems(
-            [locator.problem("a date is not expected here; quote it if it is text", path, str(node))]
-        )
-    raise RulesetError.from_problems(
-        [locator.problem(f"a YAML value of kind {type(node).__name__} is not allowed in a ruleset", path)]
-    )
+    """Plain dicts, lists and scalars from the ruamel tree; tags and odd types are errors.
+
+    Only YAML's core kinds pass (see the module docstring); aliases are expanded, within
+    :data:`MAX_VALUES` values in all.
+    """
+    return _Plain(locator).convert(node, path)
+
+
+class _Plain:
+    """One conversion of a tree, counting the values it produces (aliases expand)."""
+
+    def __init__(self, locator: Locator) -> None:
+        self.locator = locator
+        self.values = 0
+
+    def fail(self, message: str, path: tuple[str | int, ...], value: Any = None) -> RulesetError:
+        return RulesetError.from_problems([self.locator.problem(message, path, value)])
+
+    def convert(self, node: Any, path: tuple[str | int, ...]) -> Any:
+        self.values += 1
+        if self.values > MAX_VALUES:
+            raise self.fail(f"the file expands to more than {MAX_VALUES} values (aliases repeated within "
+                            "aliases?); a ruleset is far smaller", path)
+        if len(path) > MAX_DEPTH:
+            raise self.fail(f"nested deeper than a ruleset can be (at most {MAX_DEPTH} levels)", path)
+        tag = getattr(getattr(node, "tag", None), "value", None)
+        if isinstance(node, TaggedScalar) and tag == "tag:yaml.org,2002:str":
+            return self.text(str(node.value), path)
+        if tag is not None:
+            shown = str(tag).replace("tag:yaml.org,2002:", "!!")[:80]
+            raise self.fail(f"YAML tag '{shown}' is not allowed in a ruleset (a ruleset is data: "
+                            "mappings, lists, text, numbers)", path)
+        if isinstance(node, CommentedMap):
+            out: dict[str, Any] = {}
+            for key, value in node.items():
+                if not isinstance(key, str):
+                    raise self.fail(f"key {_shown(key)} must be text (quote it)", path + (key,), key)
+                self.text(key, path + (key,))
+                out[key] = self.convert(value, path + (key,))
+            return out
+        if isinstance(node, CommentedSeq):
+            return [self.convert(v, path + (i,)) for i, v in enumerate(node)]
+        if node is None or isinstance(node, bool):
+            return node
+        if isinstance(node, int):
+            return int(node)
+        if isinstance(node, float):
+            if not math.isfinite(node):
+                raise self.fail(f"{node!r} is not a usable number here; give a finite value", path, float(node))
+            return float(node)
+        if isinstance(node, str):
+            return self.text(str(node), path)
+        if isinstance(node, (_dt.date, _dt.datetime)):
+            raise self.fail("a date is not expected here; quote it if it is text", path, str(node))
+        kinds = {"bytes": "binary data (!!binary)", "CommentedSet": "a set (!!set)"}
+        kind = kinds.get(type(node).__name__, f"a YAML value of kind {type(node).__name__}")
+        raise self.fail(f"{kind} is not allowed in a ruleset", path)
+
+    def text(self, value: str, path: tuple[str | int, ...]) -> str:
+        bad = _BAD_CHARS.search(value)
+        if bad:
+            code = ord(bad.group())
+            what = "a lone surrogate, not a character" if 0xD800 <= code <= 0xDFFF else "a control character"
+            raise self.fail(f"text holds U+{code:04X}, {what}; remove it", path,
+                            value[:80].encode("utf-8", "backslashreplace").decode("ascii", "backslashreplace"))
+        return value
+
+
+def _shown(key: Any) -> str:
+    text = repr(key)
+    return text if len(text) <= 60 else text[:57] + "..."
 
 
 def validation_problems(exc: ValidationError, locator: Locator) -> list[Problem]:
@@ -225,11 +337,23 @@ def validation_problems(exc: ValidationError, locator: Locator) -> list[Problem]
         if err["type"] == "union_tag_invalid":
             # point at the `type:` or `kind:` value itself
             loc = loc + (str((err.get("ctx") or {}).get("discriminator", "")).strip("'\""),)
-        message = _message(err)
+        message = _one_line_value(_message(err))
         name = locator.field_name(loc)
         problems.append(locator.problem(f"{name}: {message}" if name else message, loc, err.get("input"),
                                         at_key=err["type"] == "extra_forbidden"))
     return problems
+
+
+def _one_line_value(message: str, limit: int = 300) -> str:
+    """A message quoting the author's value kept to one line of reasonable length.
+
+    The value may hold newlines (a block scalar) or be a megabyte long; both are shown
+    escaped and elided, so that the CLI's one line stays one line.
+    """
+    message = message.replace("\r", "\\r").replace("\n", "\\n").replace("\t", "\\t")
+    if len(message) > limit:
+        message = message[: limit // 2] + " ... " + message[-(limit // 2 - 5):]
+    return message
 
 
 def _message(err: dict[str, Any]) -> str:
