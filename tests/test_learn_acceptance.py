@@ -17,8 +17,8 @@ from assistant.history import HEADER
 from assistant.overlay import apply_priors
 from assistant.predict import predict
 from assistant.ruleset import load_ruleset
+from assistant.simulate import draw_reading
 
-simulate_module = pytest.importorskip("assistant.simulate", reason="the simulator is not merged yet")
 
 STOP_LAMPS = Path("rulesets/lamp/stop_lamps.yaml")
 FAULT = "lamp_left.high_resistance"  # corroded holder contacts: a dim left stop lamp
@@ -38,7 +38,7 @@ def _minutes_on(loaded, fault: str, runs: int = 30) -> tuple[float, float]:  # t
     h = table.hypothesis_index(fault)
     # the same seed for both rulesets: the same draws, so the difference is the priors'
     minutes, _right, _asked = isolation_minutes(loaded, table, h, runs, np.random.default_rng(3),
-                                                simulate_module.draw_reading, Context())
+                                                draw_reading, Context())
     return table.hypotheses[h].prior, minutes
 
 
