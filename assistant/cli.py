@@ -156,7 +156,7 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
 
     if args.trials < 1:
         raise OhmtrailError(f"--trials must be at least 1, not {args.trials}")
-    loaded = _load_checked(args.ruleset)
+    loaded = check_ruleset(load_with_overlays(args))
     table = predict_module.predict(loaded, seed=args.seed)
     show_bar = not args.json and sys.stdout.isatty() and sys.stderr.isatty()
     result = simulate(loaded, table, trials=args.trials, seed=args.seed, threshold=args.threshold,
@@ -528,6 +528,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--threshold", type=float, default=None, metavar="P",
                    help="stop when a fault reaches P (default: the ruleset's threshold)")
     p.add_argument("--json", action="store_true", help="print the figures as JSON")
+    add_overlay_options(p)
     p.set_defaults(handler=_cmd_simulate)
 
     p = _add_session_command(
