@@ -90,7 +90,7 @@ def _stop_lamp_table():  # type: ignore[no-untyped-def]
 def test_voltage_path_runs_from_the_supply_outward() -> None:
     table = _stop_lamp_table()
     ids = [table.tests[t].id for t in voltage_path(STOP_LAMPS.ruleset, table)]
-    assert ids[:3] == ["v_fuse", "v_switch_out", "v_splice"]
+    assert ids[:4] == ["v_fuse", "v_switch_in", "v_switch_out", "v_splice"]  # pedal pressed at SW_OUT
     assert set(ids[3:]) == {"v_left_feed", "v_right_feed", "v_high_feed"}
 
 
