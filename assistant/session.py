@@ -149,6 +149,7 @@ class Session:
         session._fired(source)
         for text in intake.notes:
             session._write("note", note=text)
+            source.tell(f"note: {text}")
         log.info("session %s started on %s", record.id, ruleset.id)
         return session
 
