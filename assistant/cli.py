@@ -156,7 +156,7 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
 
     if args.trials < 1:
         raise OhmtrailError(f"--trials must be at least 1, not {args.trials}")
-    loaded = _load_checked(args.ruleset)
+    loaded = check_ruleset(load_with_overlays(args))
     table = predict_module.predict(loaded, seed=args.seed)
     show_bar = not args.json and sys.stdout.isatty() and sys.stderr.isatty()
     result = simulate(loaded, table, trials=args.trials, seed=args.seed, threshold=args.threshold,
@@ -182,7 +182,8 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
 def _load_session(args: argparse.Namespace) -> SessionRecord:
     from assistant.store import open_store
 
-    return open_store(args.db).load(args.session_id)
+    store = open_store(args.db)
+    return store.load(store.find(args.session_id))  # an id or a unique prefix of one
 
 
 def _emit(data: bytes, output: str | None, default_name: str) -> None:
@@ -235,7 +236,7 @@ def _cmd_verify(args: argparse.Namespace) -> int:
 def _add_session_command(sub: argparse._SubParsersAction[argparse.ArgumentParser], name: str,
                          help_text: str, description: str) -> argparse.ArgumentParser:
     p = sub.add_parser(name, help=help_text, description=description)
-    p.add_argument("session_id", metavar="ID", help="the session id")
+    p.add_argument("session_id", metavar="ID", help="the session id (or a unique start of it)")
     p.add_argument("-o", "--output", metavar="FILE",
                    help="where to write ('-' for standard output; default: a file named after "
                    "the session in the current folder)")
@@ -527,6 +528,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--threshold", type=float, default=None, metavar="P",
                    help="stop when a fault reaches P (default: the ruleset's threshold)")
     p.add_argument("--json", action="store_true", help="print the figures as JSON")
+    add_overlay_options(p)
     p.set_defaults(handler=_cmd_simulate)
 
     p = _add_session_command(

@@ -9,7 +9,7 @@ import math
 import re
 from datetime import datetime, timezone
 
-from assistant.record import Step
+from assistant.record import SessionRecord, Step
 from assistant.ruleset.defaults import fault_list
 from assistant.ruleset.model import Ruleset
 
@@ -29,7 +29,9 @@ def unit_symbol(unit: str | None) -> str:
 def _prefix_for(magnitude: float, unit: str) -> tuple[float, str]:
     if not unit or magnitude == 0 or not math.isfinite(magnitude):
         return 1.0, ""
-    allowed = _PREFIXES if unit == "Ω" else tuple(p for p in _PREFIXES if p[0] <= 1.0)
+    # meters show ohms as 0.9 Ω, not 900 mΩ; volts and amperes below one in milli and micro
+    allowed = (tuple(p for p in _PREFIXES if p[0] >= 1.0) if unit == "Ω"
+               else tuple(p for p in _PREFIXES if p[0] <= 1.0))
     for factor, prefix in allowed:
         if magnitude >= factor:
             return factor, prefix
@@ -113,6 +115,16 @@ def format_stamp_short(text: str) -> str:
 def clean_text(text: str) -> str:
     """User text with control characters (other than newline and tab) taken out."""
     return _CONTROL.sub("", text.replace("\r\n", "\n").replace("\r", "\n"))
+
+
+def complaint_text(record: SessionRecord) -> str:
+    """The complaint in words: the start step's text with the complaint id, or what was given."""
+    given = clean_text(record.complaint or "")
+    start = record.steps[0] if record.steps and record.steps[0].kind == "start" else None
+    words = clean_text(start.note or "") if start else ""
+    if words and given and words != given:
+        return f"{words} ({given})"
+    return words or given
 
 
 def format_suspects(top: tuple[tuple[str, float], ...], count: int = 3) -> str:

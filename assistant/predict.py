@@ -178,7 +178,7 @@ def predict(
 def compute_table(loaded: LoadedRuleset, meter: MeterProfile, *, samples: int = 64, seed: int = 0,
                   pairs: Sequence[tuple[str, str]] = (), nominal: bool = False) -> PredictionTable:
     """The prediction table, computed (no cache)."""
-    from assistant.circuit.measure import Env, measurement_for, observation_rows
+    from assistant.circuit.measure import Env, ResistanceMeasurement, measurement_for, observation_rows
     from assistant.circuit.netlist import CircuitModel
     from assistant.circuit.operating import operate_states
 
@@ -191,6 +191,12 @@ def compute_table(loaded: LoadedRuleset, meter: MeterProfile, *, samples: int = 
         for pair in m.probes():
             if pair not in probes.setdefault(m.state, []):
                 probes[m.state].append(pair)
+    ohms_probes: dict[tuple[str, tuple[str, ...], tuple[str, ...]], list[tuple[str, str]]] = {}
+    for m in meter_tests.values():
+        if isinstance(m, ResistanceMeasurement):
+            pair = (m.points()[0], m.points()[1])
+            if pair not in ohms_probes.setdefault(m.setup(), []):
+                ohms_probes[m.setup()].append(pair)
     H, T, S = len(hyps), len(ruleset.tests), samples
     shape = (H, T, S)
     out_samples, out_sigma, out_res = np.full(shape, np.nan), np.full(shape, np.nan), np.full(shape, np.nan)
@@ -203,7 +209,7 @@ def compute_table(loaded: LoadedRuleset, meter: MeterProfile, *, samples: int = 
         batch = model.batch(group, samples, seed=seed, nominal=nominal)
         points = operate_states(model, batch, probes)
         blown = {f.id: np.logical_or.reduce([p.blown[f.id] for p in points.values()]) for f in model.fuses}
-        env = Env(model, batch, meter, points, blown, slice(0, samples))
+        env = Env(model, batch, meter, points, blown, slice(0, samples), ohms_probes)
         for t, test in enumerate(ruleset.tests):
             if test.kind == "observation":
                 continue

@@ -183,6 +183,9 @@ def pdf_from_content(content: ReportContent, trail_png: bytes | None,
     if content.alternatives:
         block += [Spacer(1, 2 * mm), Paragraph("Alternatives left:", st["body"]),
                   _facts_table(content.alternatives, st)]
+    if content.cannot_tell_apart:
+        block.append(Paragraph(_p("No test of the ruleset can tell the diagnosis from: "
+                                  + "; ".join(content.cannot_tell_apart) + "."), st["body"]))
     story.append(KeepTogether(block))
     story += [Paragraph("Repair", st["h2"]), Paragraph(_p(content.repair), st["body"]),
               Paragraph("Verification", st["h2"]), Paragraph(_p(content.verification), st["body"]),

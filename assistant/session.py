@@ -143,10 +143,7 @@ class Session:
         diagnosis = engine.start(engine.loaded, engine.table, engine.context(record), threshold)
         store.create(record)
         session = cls(store, record, engine, diagnosis)
-        session._rules = set()
-        complaint = next((c.text for c in ruleset.complaints if c.id == intake.complaint), None)
-        session._write("start", top=session._top(), note=complaint)
-        session._fired(source)
+        session._write_start(source)
         for text in intake.notes:
             session._write("note", note=text)
             source.tell(f"note: {text}")
@@ -167,7 +164,18 @@ class Session:
         diagnosis = engine.start(engine.loaded, engine.table, engine.context(record), record.threshold)
         session = cls(store, record, engine, diagnosis)
         session._replay()
+        if not session._steps:
+            # Killed between creating the record and writing its first step: write it now, so
+            # the trail still opens with the complaint and the rules that fired at the start.
+            session._write_start(None)
         return session
+
+    def _write_start(self, source: ReadingSource | None) -> None:
+        self._rules = set()
+        ruleset = self.engine.loaded.ruleset
+        complaint = next((c.text for c in ruleset.complaints if c.id == self._record.complaint), None)
+        self._write("start", top=self._top(), note=complaint)
+        self._fired(source)
 
     def _replay(self) -> None:
         for step in self._steps:
@@ -224,14 +232,15 @@ class Session:
     def _top(self, n: int = 3) -> tuple[tuple[str, float], ...]:
         return tuple((h, float(p)) for h, p in self.diagnosis.ranking()[:n])
 
-    def _fired(self, source: ReadingSource) -> tuple[str, ...]:
+    def _fired(self, source: ReadingSource | None) -> tuple[str, ...]:
         """Write a rule step for each decision rule that fired since the last look; their ids."""
         new = tuple(r for r in self.diagnosis.rules_fired if r not in self._rules)
         why = {r.id: r.why for r in self.engine.loaded.ruleset.rules}
         for rule_id in new:
             self._rules.add(rule_id)
             self._write("rule", rules_fired=(rule_id,), note=why.get(rule_id), top=self._top())
-            source.tell(f"rule {rule_id}: {why.get(rule_id) or 'fired'}")
+            if source is not None:
+                source.tell(f"rule {rule_id}: {why.get(rule_id) or 'fired'}")
         return new
 
     # ------------------------------------------------------------------ running

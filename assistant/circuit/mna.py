@@ -25,11 +25,9 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
-from scipy.sparse import coo_matrix, csc_matrix, csr_matrix
-from scipy.sparse.linalg import splu
-from scipy.sparse.csgraph import connected_components
 
 from assistant.errors import CircuitError
 
@@ -190,7 +188,8 @@ def solve(net: Netlist, probes: Sequence[tuple[int, int]] = ()) -> Solution:
 
 
 SPARSE_ABOVE = 150  # unknowns above which each variant is factorised sparse, one by one
-CHUNK_ENTRIES = 8e6  # matrix entries held at once (64 MB of float64)
+CHUNK_ENTRIES = 2e6  # matrix entries held at once (16 MB of float64)
+DENSE_MAP_ENTRIES = 2e6  # stamp maps up to this size are plain arrays
 
 
 class _Pattern:
@@ -250,7 +249,13 @@ class _Pattern:
         self.rows = np.array([k[0] for k in keys], dtype=int)
         self.cols = np.array([k[1] for k in keys], dtype=int)
         self.diagonal = np.arange(self.size)
-        self.map = csr_matrix((weights, (params, where)), shape=(q, len(keys)))
+        if q * len(keys) <= DENSE_MAP_ENTRIES:
+            self.map: Any = np.zeros((q, len(keys)))
+            np.add.at(self.map, (params, where), weights)
+        else:  # scipy is imported only for large circuits: it costs a second to load
+            from scipy.sparse import csr_matrix
+
+            self.map = csr_matrix((weights, (params, where)), shape=(q, len(keys)))
         # the entries in compressed-column order, for the sparse factorisation
         order = np.lexsort((self.rows, self.cols))
         self.csc_order = order
@@ -271,18 +276,24 @@ class _Pattern:
         for src in net.vccs:
             columns.append(np.where(src.active, src.siemens, 0.0))
         params = np.stack(columns, axis=1) if columns else np.zeros((B, 0))
+        if isinstance(self.map, np.ndarray):
+            return params @ self.map
         return np.asarray(self.map.T @ params.T).T.copy()
 
     def dense(self, data: np.ndarray) -> np.ndarray:
         """The matrix (or matrices) of entries ``data``, dense."""
-        out = np.zeros(data.shape[:-1] + (self.size, self.size))
-        out[..., self.rows, self.cols] = data
-        return out
+        lead = data.shape[:-1]
+        flat = np.zeros((int(np.prod(lead, dtype=int)), self.size * self.size))
+        flat[:, self.rows * self.size + self.cols] = data.reshape(-1, data.shape[-1])
+        return flat.reshape(lead + (self.size, self.size))
 
     def solve_dense(self, data: np.ndarray, z: np.ndarray) -> np.ndarray:
         return np.linalg.solve(self.dense(data), z)
 
     def solve_sparse(self, data: np.ndarray, z: np.ndarray) -> np.ndarray:
+        from scipy.sparse import csc_matrix
+        from scipy.sparse.linalg import splu
+
         out = np.empty_like(z)
         ordered = np.ascontiguousarray(data[:, self.csc_order], dtype=np.float64)
         for v in range(data.shape[0]):
@@ -329,6 +340,8 @@ def _islands(net: Netlist) -> np.ndarray:
     for p, v in enumerate(firsts):
         on = active[v]
         if n > 200:
+            from scipy.sparse import coo_matrix
+            
             graph = coo_matrix((np.ones(int(on.sum())), (a[on], b[on])), shape=(n, n))
             lab = connected_components(graph, directed=False)[1]
         else:
