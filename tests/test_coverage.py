@@ -90,7 +90,7 @@ def test_json_lists_groups_and_minutes_for_every_fault(capsys: pytest.CaptureFix
                      "v_high_feed", "drop_left_ground", "drop_right_ground", "drop_rear_ground", "drop_feed",
                      "r_left_lamp", "i_left"} | tests
     states = {s["id"]: s["tests"] for s in data["states"]}
-    assert states["released"] == ["v_fuse"] and "v_left_feed" in states["pedal_pressed"]
+    assert "v_fuse" in states["released"] and "v_left_feed" in states["pedal_pressed"]
     assert "look_fuse" in data["tests_without_state"]
     # a left-lamp fault is led to by the left complaints; no complaint names the right lamp
     left = next(f for f in data["faults"] if f["id"] == "lamp_left.filament_open")
