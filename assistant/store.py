@@ -230,7 +230,7 @@ class Store:
                 if exists:
                     raise SessionError(f"a session with id '{record.id}' already exists in {self.where}")
                 conn.execute(insert(_sessions).values(
-                    id=record.id, ruleset_id=record.ruleset_id, started=record.started,
+                    id=record.id, ruleset_id=_column(record.ruleset_id), started=_column(record.started),
                     status=record.status, header=header, updated=now))
                 for i, step in enumerate(record.steps):
                     if step.index != i:
@@ -380,9 +380,15 @@ def _header(record: SessionRecord) -> str:
     return _dumps(record.model_dump(mode="python", exclude={"steps"}))
 
 
+def _column(text: str) -> str:
+    """A text for a query column: PostgreSQL text cannot hold NUL (the JSON beside it keeps the original)."""
+    return text.replace("\x00", "\ufffd")
+
+
 def _step_row(session_id: str, step: Step) -> dict[str, Any]:
-    return {"session_id": session_id, "idx": step.index, "kind": step.kind, "at": step.at,
-            "digest": step.digest, "body": _dumps(step.model_dump(mode="python"))}
+    return {"session_id": session_id, "idx": step.index, "kind": step.kind, "at": _column(step.at),
+            "digest": None if step.digest is None else _column(step.digest),
+            "body": _dumps(step.model_dump(mode="python"))}
 
 
 def _summary(header: dict[str, Any], steps: int) -> SessionSummary:

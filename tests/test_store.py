@@ -279,12 +279,15 @@ def test_default_store_creates_its_folder(monkeypatch: pytest.MonkeyPatch, tmp_p
 
 @pytest.fixture(scope="module")
 def postgres_url() -> Iterator[str]:
-    """$OHMTRAIL_TEST_POSTGRES, or a throwaway PostgreSQL cluster on a Unix socket."""
-    given_url = os.environ.get("OHMTRAIL_TEST_POSTGRES")
+    """$OHMTRAIL_TEST_POSTGRES or $OHMTRAIL_TEST_PG_URL (the server `make test` and .ci/run start),
+    else a throwaway PostgreSQL cluster on a Unix socket. Under CI it must not skip."""
+    given_url = os.environ.get("OHMTRAIL_TEST_POSTGRES") or os.environ.get("OHMTRAIL_TEST_PG_URL")
     if given_url:
         yield given_url
         return
     if not (shutil.which("initdb") and shutil.which("pg_ctl")):
+        if os.environ.get("CI", "").lower() not in ("", "0", "false", "no"):
+            pytest.fail("PostgreSQL is required under CI: set OHMTRAIL_TEST_PG_URL (tools/ensure-postgres.sh)")
         pytest.skip("PostgreSQL binaries (initdb, pg_ctl) are not installed")
     # Not under pytest's own temporary folder: that one is private to this user.
     base = Path(tempfile.mkdtemp(prefix="ohmtrail-pg-"))
