@@ -25,6 +25,7 @@ test: $(STAMP) tools
 	@url="$${OHMTRAIL_TEST_PG_URL:-$$(sh tools/ensure-postgres.sh)}"; \
 	OHMTRAIL_TEST_PG_URL="$$url" $(BIN)/python -m pytest; rc=$$?; \
 	if [ $$rc -eq 5 ]; then echo "pytest collected no tests"; rc=0; fi; exit $$rc
+	$(BIN)/ohmtrail check rulesets/
 
 postgres:
 	@sh tools/ensure-postgres.sh

@@ -31,9 +31,9 @@ from assistant.predict import PredictionTable, TestInfo
 from assistant.reading import Reading
 
 DEFAULT_OUTLIER = 0.01
+_DU = 0.002  # bin width on the asinh scale: 0.2 % of the reading, the finest display step near 0
 _WINDOW_SIGMAS = 6.0  # a sample's mass beyond 6 standard deviations is below 1e-9
-_MAX_BINS = 4000  # coarser than this and the grid step grows
-_MAX_WINDOW = 400  # bins a single sample may spread over before the step grows
+_MAX_BINS = 20000  # more than this and the bins widen
 _CHUNK_CELLS = 1_000_000  # samples x window cells computed at once
 
 # Displays beyond these are nothing a handheld meter or clamp can show (SI units).
@@ -42,26 +42,36 @@ DISPLAY_LIMITS = {"V": 1000.0, "A": 2000.0, "ohm": 1.0e9}
 
 @dataclass(frozen=True, eq=False)
 class TestOutcomes:
-    """The outcome model of one test: ``probs[h, k]`` with the outlier floor mixed in.
+    """The outcome model of one test: ``probs[h, c]`` with the outlier floor mixed in.
 
-    For a meter test, columns ``0 .. n_bins-1`` are display bins centred on
-    ``(first_bin + k) * step`` in the test's SI unit, column ``n_bins`` is the negative overload
-    ("-OL") and ``n_bins + 1`` the overload ("OL"). For an observation the columns are its outcomes.
+    Observation: one column per answer. Meter test: the readings are binned on the scale
+    ``u = asinh(value / scale)`` in steps of ``du``, which follows an auto-ranging meter (bins of
+    about 0.2 % of the reading, and the finest display step near zero). Bins no hypothesis can
+    show are merged into one "elsewhere" column (they carry only the floor, the same for every
+    hypothesis, so merging them changes no posterior and no information gain). Columns: the
+    used bins in order of value, then "elsewhere", then "-OL", then "OL".
     """
 
     index: int
     test: TestInfo
-    probs: np.ndarray  # (H, K), rows sum to 1, outlier floor included
-    model: np.ndarray  # (H, K), the predicted part alone (rows sum to 1, or 0 where nothing is known)
-    step: float = 0.0
+    probs: np.ndarray  # (H, C), rows sum to 1, outlier floor included
+    model: np.ndarray  # (H, C), the predicted part alone (rows sum to 1, or 0 where nothing is known)
+    outlier: float = DEFAULT_OUTLIER
+    scale: float = 1.0
+    du: float = _DU
     first_bin: int = 0
     n_bins: int = 0
-    outlier: float = DEFAULT_OUTLIER
+    columns: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))  # bin -> column
+    bins: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))  # column -> bin
     log2probs: np.ndarray = field(init=False, repr=False)  # log2 of probs (-inf where 0)
+    row_negentropy: np.ndarray = field(init=False, repr=False)  # sum_k P log2 P per hypothesis
 
     def __post_init__(self) -> None:
-        with np.errstate(divide="ignore"):
-            object.__setattr__(self, "log2probs", np.log2(self.probs))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            logs = np.log2(self.probs)
+            object.__setattr__(self, "log2probs", logs)
+            object.__setattr__(self, "row_negentropy",
+                               np.where(self.probs > 0, self.probs * logs, 0.0).sum(axis=1))
 
     @property
     def is_observation(self) -> bool:
@@ -71,11 +81,25 @@ class TestOutcomes:
     def n_outcomes(self) -> int:
         return int(self.probs.shape[1])
 
+    @property
+    def n_values(self) -> int:
+        """Columns that are single value bins (meter tests)."""
+        return int(self.bins.size)
+
+    @property
+    def elementary(self) -> int:
+        """How many elementary outcomes the floor spreads over."""
+        return self.n_outcomes if self.is_observation else self.n_bins + 2
+
+    def _bin(self, value: float) -> int:
+        return int(math.floor(math.asinh(value / self.scale) / self.du + 0.5))
+
     def outcome_index(self, reading: Reading) -> int | None:
-        """The column a reading falls in; None for a value outside every predicted bin.
+        """The column a reading falls in; None for a value outside the grid.
 
         Raises ReadingError when the reading does not fit the test (a value for an observation,
-        an answer for a meter test, an answer the observation does not have).
+        an answer for a meter test, an answer the observation does not have, a value no meter
+        shows).
         """
         if self.is_observation:
             if reading.outcome is None:
@@ -89,7 +113,7 @@ class TestOutcomes:
             raise ReadingError(f"test '{self.test.id}' needs a meter reading in {self.test.unit}, "
                                f"not the answer '{reading.outcome}'")
         if reading.overload:
-            return self.n_bins if reading.text.strip().startswith("-") else self.n_bins + 1
+            return self.n_values + (1 if reading.text.strip().startswith("-") else 2)
         value = float(reading.value)  # type: ignore[arg-type]
         if not math.isfinite(value):
             raise ReadingError(f"'{reading.text}' is not a number a meter can show")
@@ -97,14 +121,13 @@ class TestOutcomes:
         if limit is not None and abs(value) > limit:
             raise ReadingError(f"{reading.text} is beyond anything the meter can show for test "
                                f"'{self.test.id}' (at most {limit:g} {self.test.unit})")
-        k = int(math.floor(value / self.step + 0.5)) - self.first_bin
-        return k if 0 <= k < self.n_bins else None
+        return self.bin_of(value)
 
     def likelihood(self, reading: Reading) -> np.ndarray:
         """P(reading | h) for every hypothesis, outlier floor included; never zero."""
         k = self.outcome_index(reading)
         if k is None:
-            return np.full(self.probs.shape[0], self.outlier / self.n_outcomes)
+            return np.full(self.probs.shape[0], self.outlier / self.elementary)
         return self.probs[:, k]
 
     def explained(self, reading: Reading) -> np.ndarray:
@@ -112,34 +135,47 @@ class TestOutcomes:
         k = self.outcome_index(reading)
         if k is None:
             return np.zeros(self.probs.shape[0], dtype=bool)
-        return (1.0 - self.outlier) * self.model[:, k] > self.outlier / self.n_outcomes
+        return (1.0 - self.outlier) * self.model[:, k] > self.outlier / self.elementary
 
     def bin_of(self, value: float) -> int | None:
-        """Column of a finite SI value (None outside the grid); ±inf go to the overload columns."""
+        """Column of an SI value (None outside the grid); ±inf go to the overload columns."""
         if self.is_observation:
             raise ValueError("observations have no value bins")
         if math.isinf(value):
-            return self.n_bins + 1 if value > 0 else self.n_bins
-        k = int(math.floor(value / self.step + 0.5)) - self.first_bin
-        return k if 0 <= k < self.n_bins else None
+            return self.n_values + (2 if value > 0 else 1)
+        k = self._bin(value) - self.first_bin
+        return int(self.columns[k]) if 0 <= k < self.n_bins else None
 
-    def label(self, k: int) -> str:
-        """How outcome ``k`` reads on the meter or as an answer."""
+    def bounds(self, column: int) -> tuple[float, float]:
+        """The SI values a value column spans."""
+        k = int(self.bins[column])
+        return (self.scale * math.sinh((k - 0.5) * self.du), self.scale * math.sinh((k + 0.5) * self.du))
+
+    def width(self, column: int) -> float:
+        lo, hi = self.bounds(column)
+        return hi - lo
+
+    def label(self, column: int) -> str:
+        """How outcome ``column`` reads on the meter or as an answer."""
         if self.is_observation:
-            return self.test.outcomes[k]
-        if k == self.n_bins:
+            return self.test.outcomes[column]
+        if column == self.n_values:
+            return "elsewhere"
+        if column == self.n_values + 1:
             return "-OL"
-        if k == self.n_bins + 1:
+        if column == self.n_values + 2:
             return "OL"
-        return format_value((self.first_bin + k) * self.step, self.test.unit, self.step)
+        return format_value(self.centre(column), self.test.unit, self.width(column))
 
-    def centre(self, k: int) -> float:
-        """The SI value at the centre of bin ``k`` (±inf for the overload columns)."""
-        if k == self.n_bins:
+    def centre(self, column: int) -> float:
+        """The SI value at the centre of a column (±inf for overloads, NaN for "elsewhere")."""
+        if column == self.n_values:
+            return math.nan
+        if column == self.n_values + 1:
             return -math.inf
-        if k == self.n_bins + 1:
+        if column == self.n_values + 2:
             return math.inf
-        return (self.first_bin + k) * self.step
+        return self.scale * math.sinh(int(self.bins[column]) * self.du)
 
 
 def format_value(value: float, unit: str, step: float | None = None) -> str:
@@ -168,8 +204,9 @@ class EvidenceModel:
     def log_likelihood(self, answered: Iterable[tuple[int, Reading]]) -> np.ndarray:
         """Sum over the answered tests of log P(reading | h), shape (H,)."""
         total = np.zeros(self.n_hypotheses)
-        for t, reading in answered:
-            total += np.log(self.tests[t].likelihood(reading))
+        with np.errstate(divide="ignore"):  # a noise-free model rules out with log 0 = -inf
+            for t, reading in answered:
+                total += np.log(self.tests[t].likelihood(reading))
         return total
 
 
@@ -189,11 +226,10 @@ def build_model(table: PredictionTable, *, outlier: float = DEFAULT_OUTLIER,
     return EvidenceModel(table, tuple(tests), eps)
 
 
-def _mix(model: np.ndarray, eps: float) -> np.ndarray:
-    k = model.shape[1]
+def _mix(model: np.ndarray, floor: np.ndarray, eps: float) -> np.ndarray:
     known = model.sum(axis=1, keepdims=True) > 0
-    main = np.where(known, model, 1.0 / k)
-    return (1.0 - eps) * main + eps / k
+    main = np.where(known, model, floor[None, :])
+    return (1.0 - eps) * main + eps * floor[None, :]
 
 
 def _observation_outcomes(table: PredictionTable, t: int, info: TestInfo, eps: float,
@@ -206,7 +242,7 @@ def _observation_outcomes(table: PredictionTable, t: int, info: TestInfo, eps: f
     model = np.where(sums > 0, model / np.where(sums > 0, sums, 1.0), 1.0 / k)
     if noise_free:
         model = np.eye(k)[np.argmax(model, axis=1)]
-    return TestOutcomes(t, info, _mix(model, eps), model, outlier=eps)
+    return TestOutcomes(t, info, _mix(model, np.full(k, 1.0 / k), eps), model, outlier=eps)
 
 
 def _bandwidth(x: np.ndarray) -> float:
@@ -219,21 +255,39 @@ def _bandwidth(x: np.ndarray) -> float:
     return 0.9 * spread * x.size ** -0.2
 
 
-def _spread_samples(acc: np.ndarray, xv: np.ndarray, sv: np.ndarray, hs: np.ndarray,
-                    offsets: np.ndarray, step: float, first: int, n_bins: int) -> None:
-    """Add each sample's display distribution (normal, integrated over the bins) into ``acc``."""
-    bins = np.floor(xv / step + 0.5).astype(np.int64)[:, None] - first + offsets[None, :]  # (N, W)
-    lower = (first + bins - 0.5) * step
-    upper = lower + step
+def _bandwidths(u: np.ndarray, finite: np.ndarray) -> np.ndarray:
+    """Silverman's bandwidth of each row's finite values (0 for rows with fewer than two)."""
+    count = finite.sum(axis=1)
+    bw = np.zeros(u.shape[0])
+    rows = count >= 2
+    if rows.any():
+        x = u[rows]
+        sd = np.nanstd(x, axis=1, ddof=1)
+        full = bool(finite[rows].all())  # np.percentile is far faster than nanpercentile
+        q75, q25 = (np.percentile if full else np.nanpercentile)(x, [75, 25], axis=1)
+        iqr = (q75 - q25) / 1.34
+        spread = np.where(iqr > 0, np.minimum(sd, iqr), sd)
+        bw[rows] = 0.9 * spread * count[rows] ** -0.2
+    return bw
+
+
+def _spread_samples(acc: np.ndarray, uv: np.ndarray, sv: np.ndarray, rows: np.ndarray,
+                    offsets: np.ndarray, du: float, first: int, n_bins: int, width: int) -> None:
+    """Add each sample's display distribution (normal on the u scale, integrated over the bins)
+    into ``acc`` (flattened (H, width))."""
+    bins = np.floor(uv / du + 0.5).astype(np.int64)[:, None] - first + offsets[None, :]  # (N, W)
+    lower = (first + bins - 0.5) * du
+    upper = lower + du
     spread = sv > 0
     safe = np.where(spread, sv, 1.0)[:, None]
-    mass = ndtr((upper - xv[:, None]) / safe) - ndtr((lower - xv[:, None]) / safe)
-    point = ((lower <= xv[:, None]) & (xv[:, None] < upper)).astype(float)
-    mass = np.where(spread[:, None], mass, point)
+    mass = ndtr((upper - uv[:, None]) / safe) - ndtr((lower - uv[:, None]) / safe)
+    if not spread.all():  # exact values (noise-free tables): all the mass in their own bin
+        point = ((lower <= uv[:, None]) & (uv[:, None] < upper)).astype(float)
+        mass = np.where(spread[:, None], mass, point)
     mass = np.where((bins >= 0) & (bins < n_bins), mass, 0.0)
     totals = mass.sum(axis=1, keepdims=True)
     mass = mass / np.where(totals > 0, totals, 1.0)
-    flat = hs[:, None] * (n_bins + 2) + np.clip(bins, 0, n_bins - 1)
+    flat = rows[:, None] * width + np.clip(bins, 0, n_bins - 1)
     acc += np.bincount(flat.ravel(), weights=mass.ravel(), minlength=acc.size)
 
 
@@ -242,67 +296,80 @@ def _meter_outcomes(table: PredictionTable, t: int, info: TestInfo, eps: float,
     x = np.asarray(table.samples[:, t, :], dtype=float)
     sig = np.nan_to_num(np.asarray(table.sigma[:, t, :], dtype=float), nan=0.0, posinf=0.0)
     res = np.asarray(table.resolution[:, t, :], dtype=float)
-    n_h = x.shape[0]
+    n_h, n_s = x.shape
     finite = np.isfinite(x)
     good_res = res[np.isfinite(res) & (res > 0)]
-    step = float(good_res.max()) if good_res.size else 1.0
+    du = _DU
+    scale = (float(good_res.min()) if good_res.size else 1e-3) / du
+    u = np.where(finite, np.arcsinh(np.where(finite, x, 0.0) / scale), np.nan)
 
     if noise_free:
-        centres = np.full(n_h, np.nan)
+        centre = np.full(n_h, np.nan)
         for h in range(n_h):
             row = x[h]
-            over = np.isposinf(row).sum(), np.isneginf(row).sum()
-            fin = row[np.isfinite(row)]
+            over = int(np.isposinf(row).sum()), int(np.isneginf(row).sum())
+            fin = u[h][finite[h]]
             if fin.size > max(over):
-                centres[h] = float(np.median(fin))
-            elif over[0] or over[1]:
-                centres[h] = math.inf if over[0] >= over[1] else -math.inf
-        fin_c = centres[np.isfinite(centres)]
-        lo, hi = (float(fin_c.min()), float(fin_c.max())) if fin_c.size else (0.0, 0.0)
-        first = int(math.floor(lo / step + 0.5))
-        n_bins = int(math.floor(hi / step + 0.5)) - first + 1
-        model = np.zeros((n_h, n_bins + 2))
-        for h, c in enumerate(centres):
+                centre[h] = float(np.median(fin))
+            elif max(over) > 0:
+                centre[h] = math.inf if over[0] >= over[1] else -math.inf
+        spread = np.zeros_like(x)
+        points = np.isfinite(centre)
+        lo = float(centre[points].min()) if points.any() else 0.0
+        hi = float(centre[points].max()) if points.any() else 0.0
+    else:
+        centre = None
+        # each sample's spread on the u scale: the meter's uncertainty (delta method) and the
+        # kernel bandwidth of its hypothesis' samples
+        bw = _bandwidths(u, finite)
+        sig_u = sig / np.sqrt(np.where(finite, x, 0.0) ** 2 + scale ** 2)
+        spread = np.sqrt(sig_u ** 2 + bw[:, None] ** 2)
+        lo = float((u - _WINDOW_SIGMAS * spread)[finite].min()) if finite.any() else 0.0
+        hi = float((u + _WINDOW_SIGMAS * spread)[finite].max()) if finite.any() else 0.0
+    if (hi - lo) / du > _MAX_BINS:
+        du *= math.ceil((hi - lo) / du / _MAX_BINS)
+    first = int(math.floor(lo / du + 0.5))
+    n_bins = int(math.floor(hi / du + 0.5)) - first + 1
+    width = n_bins + 2
+    model = np.zeros((n_h, width))
+
+    if centre is not None:
+        for h, c in enumerate(centre):
             if math.isnan(c):
                 continue
             if math.isinf(c):
                 model[h, n_bins + (1 if c > 0 else 0)] = 1.0
             else:
-                model[h, int(math.floor(c / step + 0.5)) - first] = 1.0
-        return TestOutcomes(t, info, _mix(model, eps), model, step, first, n_bins, eps)
-
-    # spread of each sample: meter uncertainty and the kernel bandwidth of its hypothesis
-    bw = np.array([_bandwidth(x[h][finite[h]]) for h in range(n_h)])
-    spread = np.sqrt(sig ** 2 + bw[:, None] ** 2)
-    if finite.any():
-        lo = float((x - _WINDOW_SIGMAS * spread)[finite].min())
-        hi = float((x + _WINDOW_SIGMAS * spread)[finite].max())
-        widest = float(spread[finite].max())
+                model[h, int(math.floor(c / du + 0.5)) - first] = 1.0
     else:
-        lo = hi = widest = 0.0
-    # keep the grid and each sample's window to a workable size
-    factor = max(1.0, (hi - lo) / step / _MAX_BINS, 2 * _WINDOW_SIGMAS * widest / step / _MAX_WINDOW)
-    if factor > 1.0:
-        step *= math.ceil(factor)
-    first = int(math.floor(lo / step + 0.5))
-    n_bins = int(math.floor(hi / step + 0.5)) - first + 1
-    model = np.zeros((n_h, n_bins + 2))
-    model[:, n_bins] = np.isneginf(x).mean(axis=1)
-    model[:, n_bins + 1] = np.isposinf(x).mean(axis=1)
+        model[:, n_bins] = np.isneginf(x).mean(axis=1)
+        model[:, n_bins + 1] = np.isposinf(x).mean(axis=1)
+        acc = np.zeros(n_h * width)
+        # hypotheses grouped by how many bins their samples spread over, so that narrow ones
+        # are not computed over the widest window
+        half = np.ceil(_WINDOW_SIGMAS * np.where(finite, spread, 0.0).max(axis=1) / du).astype(np.int64) + 1
+        bucket = np.ceil(np.log2(half)).astype(np.int64)
+        for b in np.unique(bucket):
+            hs, ss = np.nonzero(finite & (bucket == b)[:, None])
+            if not hs.size:
+                continue
+            offsets = np.arange(-int(2 ** b), int(2 ** b) + 1)
+            chunk = max(1, _CHUNK_CELLS // offsets.size)
+            for start in range(0, hs.size, chunk):
+                h_c, s_c = hs[start:start + chunk], ss[start:start + chunk]
+                _spread_samples(acc, u[h_c, s_c], spread[h_c, s_c], h_c, offsets, du, first, n_bins, width)
+        model += acc.reshape(n_h, width) / n_s
+        sums = model.sum(axis=1, keepdims=True)
+        model = np.where(sums > 0, model / np.where(sums > 0, sums, 1.0), 0.0)
 
-    hs, ss = np.nonzero(finite)
-    if hs.size:
-        half = int(math.ceil(_WINDOW_SIGMAS * widest / step)) + 1
-        offsets = np.arange(-half, half + 1)
-        acc = np.zeros(n_h * (n_bins + 2))
-        chunk = max(1, _CHUNK_CELLS // offsets.size)
-        for start in range(0, hs.size, chunk):
-            h_c, s_c = hs[start:start + chunk], ss[start:start + chunk]
-            _spread_samples(acc, x[h_c, s_c], spread[h_c, s_c], h_c, offsets, step, first, n_bins)
-        model += acc.reshape(n_h, n_bins + 2) / x.shape[1]
-    sums = model.sum(axis=1, keepdims=True)
-    model = np.where(sums > 0, model / np.where(sums > 0, sums, 1.0), 0.0)
-    return TestOutcomes(t, info, _mix(model, eps), model, step, first, n_bins, eps)
+    # merge the bins no hypothesis shows into one column
+    used = np.nonzero(model[:, :n_bins].sum(axis=0) > 0)[0]
+    columns = np.full(n_bins, used.size, dtype=np.int64)
+    columns[used] = np.arange(used.size)
+    compact = np.concatenate([model[:, used], np.zeros((n_h, 1)), model[:, n_bins:]], axis=1)
+    floor = np.concatenate([np.ones(used.size), [n_bins - used.size], [1.0, 1.0]]) / width
+    return TestOutcomes(t, info, _mix(compact, floor, eps), compact, eps, scale, du, first, n_bins,
+                        columns, used + first)
 
 
 # --------------------------------------------------------------------------- the posterior

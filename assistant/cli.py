@@ -12,9 +12,12 @@ import logging
 import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from assistant import __version__
 from assistant.errors import LocatedError, OhmtrailError, OutputError
+from assistant.cases import check_paths, default_predictor
+from assistant.coverage import DEFAULT_SEPARATION, coverage, coverage_text
 from assistant.export import export_json, read_export, verify_export
 from assistant.history import HEADER as HISTORY_HEADER
 from assistant.history import Repair, default_ruleset_roots, known_ruleset_ids, read_history, repairs_from_store
@@ -23,13 +26,18 @@ from assistant.netgraph import FORMATS as GRAPH_FORMATS
 from assistant.netgraph import circuit_graph, render_graph
 from assistant.overlay import beside_path, overlay_document
 from assistant.record import SessionRecord
-from assistant.report import output_stem, render_report, write_output
+from assistant.report import output_stem, render_report, session_names, write_output
 from assistant.ruleset import lint_paths
 from assistant.ruleset.lint import check_ruleset, summary
 from assistant.ruleset.load import LoadedRuleset, load_ruleset
 from assistant.scaffold import FAMILIES, write_scaffold
 from assistant.ruleset.model import Ruleset
 from assistant.trail import render_trail
+
+if TYPE_CHECKING:
+    from assistant.meter import MeterProfile
+    from assistant.session import Engine
+    from assistant.sources import ReadingSource
 
 log = logging.getLogger("ohmtrail.cli")
 
@@ -64,6 +72,23 @@ def _positive_float(text: str) -> float:
     return value
 
 
+def _count(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"'{text}' must not be negative")
+    return value
+
+
+def _fraction(text: str) -> float:
+    value = _positive_float(text)
+    if value > 1:
+        raise argparse.ArgumentTypeError(f"'{text}' must be a fraction between 0 and 1")
+    return value
+
+
 # --------------------------------------------------------------------------- commands
 
 
@@ -91,7 +116,7 @@ def _cmd_predict(args: argparse.Namespace) -> int:
     from assistant.meter import load_meter_profile
     from assistant.predict import predict, prediction_json, prediction_text
 
-    loaded = _load_checked(args.ruleset)
+    loaded = check_ruleset(load_with_overlays(args))
     meter = load_meter_profile(args.meter) if args.meter else None
     table = predict(loaded, meter, samples=args.samples, seed=args.seed, cache=not args.no_cache)
     if args.json:
@@ -118,10 +143,47 @@ def _cmd_spice(args: argparse.Namespace) -> int:
     return 0
 
 
+def _progress_bar(done: int, total: int) -> None:
+    width = 30
+    filled = width * done // max(total, 1)
+    end = "\n" if done >= total else ""
+    print(f"\r[{'#' * filled}{'.' * (width - filled)}] {done}/{total} runs", end=end, file=sys.stderr, flush=True)
+
+
+def _cmd_simulate(args: argparse.Namespace) -> int:
+    from assistant import predict as predict_module
+    from assistant.simulate import simulate
+
+    if args.trials < 1:
+        raise OhmtrailError(f"--trials must be at least 1, not {args.trials}")
+    loaded = check_ruleset(load_with_overlays(args))
+    table = predict_module.predict(loaded, seed=args.seed)
+    show_bar = not args.json and sys.stdout.isatty() and sys.stderr.isatty()
+    result = simulate(loaded, table, trials=args.trials, seed=args.seed, threshold=args.threshold,
+                      progress=_progress_bar if show_bar else None)
+    if args.json:
+        print(json.dumps(result.to_json(), indent=2))
+        return 0
+    optimum = result.optimal_noise_free_minutes
+    print(f"{result.ruleset}: {result.hypotheses} hypotheses x {result.trials} trials, "
+          f"threshold {result.threshold:g}, seed {result.seed}")
+    print(f"{'strategy':<14}{'accuracy':>10}{'tests':>8}{'minutes':>9}")
+    print(f"{'planner':<14}{result.accuracy:>10.3f}{result.mean_tests:>8.2f}{result.mean_minutes:>9.2f}")
+    for name, fig in (("linear walk", result.linear_walk), ("half-split", result.half_split)):
+        print(f"{name:<14}{fig.accuracy:>10.3f}{fig.mean_tests:>8.2f}{fig.mean_minutes:>9.2f}")
+    print(f"worst planner run: {result.worst_minutes:.1f} min")
+    print(f"noise-free: planner {result.planner_noise_free_minutes:.2f} min, optimum "
+          + (f"{optimum:.2f} min" if optimum is not None else "not found within 60 s"))
+    for group in result.ambiguity_groups:
+        print("no test tells apart: " + ", ".join(group))
+    return 0
+
+
 def _load_session(args: argparse.Namespace) -> SessionRecord:
     from assistant.store import open_store
 
-    return open_store(args.db).load(args.session_id)
+    store = open_store(args.db)
+    return store.load(store.find(args.session_id))  # an id or a unique prefix of one
 
 
 def _emit(data: bytes, output: str | None, default_name: str) -> None:
@@ -136,7 +198,7 @@ def _emit(data: bytes, output: str | None, default_name: str) -> None:
 
 def _cmd_trail(args: argparse.Namespace) -> int:
     record = _load_session(args)
-    drawing = render_trail(record, args.format)
+    drawing = render_trail(record, args.format, session_names(record))
     output = args.output
     if drawing.hint and output not in (None, "-"):
         output = str(Path(output).with_suffix(".dot"))
@@ -149,7 +211,7 @@ def _cmd_trail(args: argparse.Namespace) -> int:
 
 def _cmd_report(args: argparse.Namespace) -> int:
     record = _load_session(args)
-    _emit(render_report(record, args.format), args.output,
+    _emit(render_report(record, args.format, session_names(record)), args.output,
           f"{output_stem(record.id)}-report.{args.format}")
     return 0
 
@@ -174,7 +236,7 @@ def _cmd_verify(args: argparse.Namespace) -> int:
 def _add_session_command(sub: argparse._SubParsersAction[argparse.ArgumentParser], name: str,
                          help_text: str, description: str) -> argparse.ArgumentParser:
     p = sub.add_parser(name, help=help_text, description=description)
-    p.add_argument("session_id", metavar="ID", help="the session id")
+    p.add_argument("session_id", metavar="ID", help="the session id (or a unique start of it)")
     p.add_argument("-o", "--output", metavar="FILE",
                    help="where to write ('-' for standard output; default: a file named after "
                    "the session in the current folder)")
@@ -243,6 +305,173 @@ def _cmd_graph(args: argparse.Namespace) -> int:
     return 0
 
 
+def _cmd_check(args: argparse.Namespace) -> int:
+    report = check_paths(args.paths, default_predictor(args.samples, args.seed), beside=not args.no_overlay)
+    for problem in report.problems:
+        print(problem, file=sys.stderr)
+    for r in report.results:
+        if r.passed:
+            print(f"PASS  {r.ruleset_id}: {r.case_id}  ({r.diagnosis} {r.probability:.2f}; "
+                  f"{len(r.asked)} test{'s' if len(r.asked) != 1 else ''}, {r.minutes:g} min)")
+        else:
+            print(f"FAIL  {r.ruleset_id}: {r.case_id}")
+            for difference in r.differences:
+                print(f"      {difference}")
+            print(f"      asked: {', '.join(r.asked) or 'nothing'}")
+    for path in report.without_cases:
+        print(f"note: {path} has no cases")
+    failed = sum(not r.passed for r in report.results)
+    rulesets = report.files
+    line = (f"{len(report.results)} case{'s' if len(report.results) != 1 else ''} in {rulesets} "
+            f"ruleset{'s' if rulesets != 1 else ''}: {len(report.results) - failed} passed, {failed} failed")
+    if report.problems:
+        line += f"; {len(report.problems)} ruleset problem{'s' if len(report.problems) != 1 else ''}"
+    print(line, file=sys.stdout if report.ok else sys.stderr)
+    return 0 if report.ok else 1
+
+
+def _cmd_coverage(args: argparse.Namespace) -> int:
+    from assistant.predict import predict
+
+    loaded = check_ruleset(load_with_overlays(args))
+    table = predict(loaded, samples=args.samples, seed=args.seed)
+    result = coverage(loaded, table, runs=args.runs, seed=args.seed, separation=args.separation)
+    if args.json:
+        print(json.dumps(result.to_json(), indent=2))
+    else:
+        print(coverage_text(result))
+    return 0
+
+
+# --------------------------------------------------------------------------- diagnosis sessions
+
+
+def _meter(args: argparse.Namespace) -> tuple[MeterProfile | None, str]:
+    from assistant.meter import load_meter_profile
+
+    path = getattr(args, "meter", None)
+    return (load_meter_profile(path), str(path)) if path else (None, "default")
+
+
+def _source(args: argparse.Namespace, engine: Engine, *, narrate: bool) -> ReadingSource:
+    """The reading source the options ask for: an answers file, the simulator, or the prompt."""
+    from assistant.sources import AnswersFileSource, Narrated, SimulatedSource, load_answers
+
+    loaded, table = engine.loaded, engine.table
+    source: ReadingSource
+    if args.answers:
+        source = AnswersFileSource(load_answers(args.answers, loaded.ruleset, table.tests))
+    elif args.simulate:
+        intake = load_answers(args.context, loaded.ruleset, table.tests).intake if args.context else None
+        source = SimulatedSource(table, args.simulate, args.seed, intake)
+    else:
+        from assistant.prompt import PromptSource
+
+        if not (sys.stdin.isatty() and sys.stdout.isatty()):
+            raise OhmtrailError("the interactive prompt needs a terminal; give --answers FILE or --simulate FAULT_ID")
+        return PromptSource(loaded.ruleset)
+    return Narrated(source, print) if narrate else source
+
+
+def _finish(record: SessionRecord, store_where: str, as_json: bool) -> int:
+    from assistant.session import summary_json
+
+    if as_json:
+        print(json.dumps(summary_json(record), indent=2))
+        return 0
+    ended = {"open": "left open", "concluded": "concluded (repair not yet recorded)", "closed": "closed"}
+    print(f"\nSession {record.id} {ended.get(record.status, record.status)}: {len(record.steps)} steps "
+          f"saved in {store_where}")
+    if record.status != "closed":
+        print(f"  carry on with: ohmtrail resume {record.id}")
+    print(f"  export, trail, report: ohmtrail export|trail|report {record.id}")
+    return 0
+
+
+def _cmd_diagnose(args: argparse.Namespace) -> int:
+    from assistant.session import Engine, Session
+    from assistant.store import open_store
+
+    if args.context and not args.simulate:
+        raise OhmtrailError("--context gives the vehicle and complaint for --simulate; an answers file holds its own")
+    if args.ruleset:
+        loaded = check_ruleset(load_with_overlays(args))
+    elif args.answers or args.simulate:
+        raise OhmtrailError("--answers and --simulate need a RULESET")
+    else:
+        from assistant.catalogue import catalogue
+        from assistant.prompt import choose_ruleset
+
+        args.ruleset = choose_ruleset(catalogue()).path
+        loaded = check_ruleset(load_with_overlays(args))
+    meter, meter_name = _meter(args)
+    store = open_store(args.db)  # before the slow part: a store that cannot be opened stops here
+    with store:
+        engine = Engine.build(loaded, meter)
+        source = _source(args, engine, narrate=not args.json)
+        session = Session.begin(store, engine, source, meter_name=meter_name, threshold=args.threshold,
+                                session_id=args.id)
+        record = session.run(source)
+        return _finish(record, store.where, args.json)
+
+
+def _cmd_resume(args: argparse.Namespace) -> int:
+    from assistant.session import Session, engine_for_record
+    from assistant.store import open_store
+
+    meter, _ = _meter(args)
+    with open_store(args.db) as store:
+        session = Session.resume(store, args.session_id, lambda record: engine_for_record(record, meter))
+        args.context = None
+        source = _source(args, session.engine, narrate=not args.json)
+        lines = session.recap()
+        if not args.json:
+            print(f"Resuming session {session.id} ({len(lines)} entries so far):")
+            for line in lines:
+                print(f"  {line}")
+        record = session.run(source)
+        return _finish(record, store.where, args.json)
+
+
+def _cmd_sessions(args: argparse.Namespace) -> int:
+    from assistant.session import session_json
+    from assistant.store import open_store
+
+    with open_store(args.db) as store:
+        summaries = store.list()
+        if args.json:
+            print(json.dumps([session_json(store.load(s.id)) for s in summaries], indent=2))
+            return 0
+        if not summaries:
+            print(f"no sessions in {store.where}")
+            return 0
+        rows = [("ID", "STARTED", "STATUS", "STEPS", "RULESET", "VEHICLE", "DIAGNOSIS")]
+        for s in summaries:
+            found = f"{s.diagnosis} {s.probability:.0%}" if s.diagnosis and s.probability is not None else "-"
+            rows.append((s.id, s.started[:16].replace("T", " "), s.status, str(s.steps), s.ruleset_id,
+                         s.vehicle or "-", found))
+        widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+        for r in rows:
+            print("  ".join(cell.ljust(w) for cell, w in zip(r, widths)).rstrip())
+    return 0
+
+
+def _add_reading_source_options(p: argparse.ArgumentParser) -> None:
+    group = p.add_mutually_exclusive_group()
+    group.add_argument("--answers", metavar="FILE",
+                       help="take the readings from a YAML or JSON file (complaint, vehicle, readings by "
+                       "test id); a test the file lacks is skipped")
+    group.add_argument("--simulate", metavar="FAULT_ID",
+                       help="let the circuit model answer as the meter would with this fault (or 'none')")
+    p.add_argument("--seed", type=int, default=0, metavar="S", help="random seed of --simulate (default 0)")
+    p.add_argument("--json", action="store_true",
+                   help="print one JSON object at the end (session, diagnosis, probability, steps) instead "
+                   "of the conversation")
+    p.add_argument("--db", metavar="URL", help="session store: sqlite:///FILE or postgresql://... (default: "
+                   "$OHMTRAIL_DB or sessions.db in the user data folder)")
+    p.add_argument("--meter", metavar="FILE", help="meter profile YAML (default: a 2000-count handheld)")
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser with every subcommand."""
     parser = argparse.ArgumentParser(
@@ -275,6 +504,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--samples", type=int, default=64, metavar="N", help="samples per hypothesis (default 64)")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.add_argument("--no-cache", action="store_true", help="compute afresh; neither read nor write the cache")
+    add_overlay_options(p)
     p.set_defaults(handler=_cmd_predict)
 
     p = sub.add_parser("spice", help="write a SPICE deck of the circuit as modelled",
@@ -286,6 +516,21 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--state", metavar="S", help="operating state (default: the ruleset's first)")
     p.add_argument("-o", "--output", metavar="FILE", help="write to FILE instead of standard output")
     p.set_defaults(handler=_cmd_spice)
+
+    p = sub.add_parser("simulate", help="simulate diagnoses of every fault and compare with the walks",
+                       description="For every hypothesis draw readings from the circuit model with "
+                       "meter noise, run the planner to its stop, and report accuracy, tests and "
+                       "minutes (prior-weighted) beside the linear walk, half-split and the noise-free "
+                       "optimum.")
+    p.add_argument("ruleset", metavar="RULESET", help="ruleset file")
+    p.add_argument("--trials", type=int, default=20, metavar="N", help="runs per hypothesis (default 20)")
+    p.add_argument("--seed", type=int, default=0, metavar="S", help="random seed (default 0)")
+    p.add_argument("--threshold", type=float, default=None, metavar="P",
+                   help="stop when a fault reaches P (default: the ruleset's threshold)")
+    p.add_argument("--json", action="store_true", help="print the figures as JSON")
+    add_overlay_options(p)
+    p.set_defaults(handler=_cmd_simulate)
+
     p = _add_session_command(
         sub, "trail", "draw a session's decision trail",
         "Draw the path a session took (complaint, each test with its reading against the healthy "
@@ -317,6 +562,34 @@ def build_parser() -> argparse.ArgumentParser:
                        "or field that differs and exits 1.")
     p.add_argument("file", metavar="FILE", help="a JSON file written by `ohmtrail export`")
     p.set_defaults(handler=_cmd_verify)
+    p = sub.add_parser("check", help="run every ruleset's cases; exit 1 on any failure",
+                       description="Run the cases of every ruleset under the paths (default: rulesets/) "
+                       "through the diagnosis engine, answering each proposed test with the case's "
+                       "reading and skipping the others. Prints PASS or FAIL per case with what differs; "
+                       "exit 1 on any failure or any ruleset that cannot be run.")
+    p.add_argument("paths", nargs="*", metavar="PATH", default=["rulesets"])
+    p.add_argument("--samples", type=int, default=64, metavar="N", help="prediction samples per hypothesis")
+    p.add_argument("--seed", type=int, default=0, help="random seed of the predictions (default 0)")
+    p.add_argument("--no-overlay", action="store_true", help="ignore the NAME.overlay.yaml beside each ruleset")
+    p.set_defaults(handler=_cmd_check)
+
+    p = sub.add_parser("coverage", help="what a ruleset's tests can tell apart, and at what cost",
+                       description="Report, for each fault, whether any test tells it from every other "
+                       "(ambiguity groups), the expected minutes to isolate it in simulated diagnoses, "
+                       "the tests that never change any decision, the faults no complaint leads to, and "
+                       "the operating states the tests need. --json gives the shape in docs/authoring.md.")
+    p.add_argument("ruleset", metavar="RULESET")
+    p.add_argument("--json", action="store_true", help="print JSON")
+    p.add_argument("--runs", type=_count, default=4, metavar="N",
+                   help="simulated diagnoses per hypothesis (default 4; 0 skips the simulation)")
+    p.add_argument("--samples", type=int, default=64, metavar="N", help="prediction samples per hypothesis")
+    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--separation", type=_fraction, default=DEFAULT_SEPARATION, metavar="F",
+                   help="how much of two hypotheses' predicted readings must differ for a test to tell "
+                   f"them apart (default {DEFAULT_SEPARATION})")
+    add_overlay_options(p)
+    p.set_defaults(handler=_cmd_coverage)
+
     p = sub.add_parser("learn", help="tune a ruleset's fault weights from the fleet's repair history",
                        description="Count confirmed repairs (a history CSV, and/or the store's closed "
                        "sessions) and write a priors overlay: the ruleset's fault weights updated by "
@@ -343,6 +616,37 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("name", metavar="NAME", help="the new ruleset's id (and file name)")
     p.add_argument("-o", "--output", metavar="FILE", help="where to write it (default: NAME.yaml)")
     p.set_defaults(handler=_cmd_new)
+
+    p = sub.add_parser("diagnose", help="run a diagnosis: one measurement at a time, every answer saved",
+                       description="Diagnose a circuit: ohmtrail asks for one measurement at a time (where, "
+                       "how to set the meter, the cautions, the healthy range), takes the reading as typed, "
+                       "and stops when one fault is certain enough. Every answer is saved before the next "
+                       "question; `ohmtrail resume ID` carries on. Without RULESET, pick one from the "
+                       "bundled and configured rulesets. At the prompt, type help for the commands.")
+    p.add_argument("ruleset", metavar="RULESET", nargs="?", help="a ruleset file")
+    _add_reading_source_options(p)
+    p.add_argument("--context", metavar="FILE",
+                   help="with --simulate: the vehicle, technician, complaint and fault codes, from a file in "
+                   "the answers format (no readings)")
+    p.add_argument("--threshold", type=float, metavar="P",
+                   help="stop when a fault reaches this probability (default: the ruleset's)")
+    p.add_argument("--id", metavar="ID", help="the new session's id (default: time and a random suffix)")
+    add_overlay_options(p)
+    p.set_defaults(handler=_cmd_diagnose)
+
+    p = sub.add_parser("resume", help="carry on with a session that was left open",
+                       description="Carry on with a session where it stopped: the answers so far are shown "
+                       "and kept, and the next question is asked. The ruleset file must be unchanged.")
+    p.add_argument("session_id", metavar="ID", help="the session id (a unique prefix will do)")
+    _add_reading_source_options(p)
+    p.set_defaults(handler=_cmd_resume)
+
+    p = sub.add_parser("sessions", help="list the stored sessions",
+                       description="List the sessions in the store: id, started, status, steps, ruleset, "
+                       "vehicle and diagnosis. With --json, every session with its steps.")
+    p.add_argument("--json", action="store_true", help="print JSON: every session with its steps")
+    p.add_argument("--db", metavar="URL", help="session store URL (default: $OHMTRAIL_DB or the user data folder)")
+    p.set_defaults(handler=_cmd_sessions)
 
     p = sub.add_parser("graph", help="draw a ruleset's circuit as modelled",
                        description="Draw the circuit of a ruleset with Graphviz: test points (nodes) with "

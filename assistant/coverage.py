@@ -2,15 +2,16 @@
 
 For an author deciding which tests to add or drop:
 
-- **ambiguity groups**: hypotheses no test can tell apart. Two hypotheses are told apart by a
-  meter test when at least ``separation`` (default one half) of the readings predicted under
-  one fall outside the band the other predicts (its 2.5th-97.5th percentiles widened by three
-  standard uncertainties of the meter and one display step); by an observation when their
-  outcome probabilities differ by at least ``separation`` in total variation. Hypotheses that no
-  test tells apart are joined, and the groups are the connected sets of that relation.
+- **ambiguity groups**: hypotheses no test can tell apart. A test tells two hypotheses apart
+  when the distributions of what it shows under them (the diagnosis engine's outcome models:
+  display bins with meter noise, OL, observation outcomes) differ by at least ``separation``
+  in total variation (default: the engine's own ambiguity tolerance). Hypotheses that no test
+  tells apart are joined transitively, as the engine groups them when it concludes.
 - **expected minutes to isolate** each fault: the mean cost of the tests the diagnosis engine
   asks before it concludes, over ``runs`` simulated diagnoses with readings drawn under that
-  fault (``assistant.simulate.draw_reading``), and how often it concluded that very fault;
+  fault (``assistant.simulate.draw_reading``), each started from the first complaint that leads
+  to the fault (none for "none" or a fault no complaint leads to), and how often it concluded
+  that very fault;
 - **tests that never change any decision**: tests that tell no two hypotheses apart, and tests
   the engine never chose in any of the simulated diagnoses (candidates to drop);
 - **faults no complaint leads to**, and **the operating states the tests need**.
@@ -28,18 +29,19 @@ from typing import Any
 
 import numpy as np
 
-from assistant.diagnosis import Conclusion, Context, Diagnosis
+from assistant.diagnosis import Conclusion, Context, Diagnosis, evidence_model
+from assistant.planner import AMBIGUITY_TOLERANCE, total_variation
+from assistant.planner import ambiguity_groups as engine_groups
 from assistant.overlay import apply_priors
 from assistant.predict import PredictionTable
 from assistant.ruleset.load import LoadedRuleset
 from assistant.ruleset.model import Ruleset
+from assistant.simulate import draw_reading
 
 log = logging.getLogger("ohmtrail.coverage")
 
 JSON_VERSION = 1
-DEFAULT_SEPARATION = 0.5
-_BAND = (2.5, 97.5)
-_SIGMAS = 3.0
+DEFAULT_SEPARATION = AMBIGUITY_TOLERANCE
 
 
 @dataclass(frozen=True)
@@ -112,45 +114,18 @@ class Coverage:
 # --------------------------------------------------------------------------- separability
 
 
-def _band(values: np.ndarray, sigma: np.ndarray, step: np.ndarray) -> tuple[float, float, float]:
-    """(low, high, OL fraction) of one hypothesis's predicted readings of one test."""
-    finite = np.isfinite(values)
-    ol = 1.0 - float(finite.mean()) if values.size else 0.0
-    if not finite.any():
-        return np.nan, np.nan, ol
-    v = values[finite]
-    widen = _SIGMAS * float(np.median(sigma[finite])) + float(np.median(step[finite]))
-    low, high = np.percentile(v, _BAND)
-    return float(low) - widen, float(high) + widen, ol
-
-
-def _outside(values: np.ndarray, band: tuple[float, float, float]) -> float:
-    """Fraction of ``values`` a reading under the other hypothesis would not give."""
-    low, high, ol = band
-    finite = np.isfinite(values)
-    if np.isnan(low):  # the other always reads OL: only finite readings are outside
-        return float(finite.mean())
-    inside = finite & (values >= low) & (values <= high)
-    if ol > 0.05:  # the other reads OL often enough that OL is no surprise
-        inside |= ~finite
-    return 1.0 - float(inside.mean())
-
-
 def separation_matrix(table: PredictionTable) -> np.ndarray:
-    """``sep[t, a, b]``: how well test ``t`` tells hypothesis ``a`` from ``b`` (0 to 1, symmetric)."""
-    n_h, n_t = len(table.hypotheses), len(table.tests)
-    sep = np.zeros((n_t, n_h, n_h))
-    for t in range(n_t):
-        if t in table.observations:
-            rows = np.asarray(table.observations[t], dtype=float)
-            sep[t] = 0.5 * np.abs(rows[:, None, :] - rows[None, :, :]).sum(axis=2)
-            continue
-        samples = table.samples[:, t, :]
-        bands = [_band(samples[h], table.sigma[h, t, :], table.resolution[h, t, :]) for h in range(n_h)]
-        for a in range(n_h):
-            for b in range(a + 1, n_h):
-                value = max(_outside(samples[a], bands[b]), _outside(samples[b], bands[a]))
-                sep[t, a, b] = sep[t, b, a] = value
+    """``sep[t, a, b]``: total-variation distance between what test ``t`` shows under ``a`` and ``b``.
+
+    The distributions are the diagnosis engine's own outcome models (display bins with meter
+    noise, OL, observation outcomes), so coverage and the engine agree on what a test can tell.
+    """
+    model = evidence_model(table)
+    n_h = len(table.hypotheses)
+    sep = np.zeros((len(model.tests), n_h, n_h))
+    for t, outcomes in enumerate(model.tests):
+        rows = outcomes.model
+        sep[t] = total_variation(rows[:, None, :], rows[None, :, :])
     return sep
 
 
@@ -160,24 +135,9 @@ def ambiguity_groups(table: PredictionTable, separation: float = DEFAULT_SEPARAT
     ids = [h.id for h in table.hypotheses]
     sep = separation_matrix(table)
     told = (sep >= separation).any(axis=0) if sep.size else np.zeros((len(ids), len(ids)), dtype=bool)
-    parent = list(range(len(ids)))
-
-    def find(x: int) -> int:
-        while parent[x] != x:
-            parent[x] = parent[parent[x]]
-            x = parent[x]
-        return x
-
-    partners: dict[str, tuple[str, ...]] = {}
-    for a in range(len(ids)):
-        same = [b for b in range(len(ids)) if b != a and not told[a, b]]
-        partners[ids[a]] = tuple(ids[b] for b in same)
-        for b in same:
-            parent[find(b)] = find(a)
-    members: dict[int, list[str]] = {}
-    for i, hid in enumerate(ids):
-        members.setdefault(find(i), []).append(hid)
-    groups = tuple(tuple(m) for m in members.values() if len(m) > 1)
+    partners = {ids[a]: tuple(ids[b] for b in range(len(ids)) if b != a and not told[a, b])
+                for a in range(len(ids))}
+    groups = tuple(tuple(ids[h] for h in g) for g in engine_groups(evidence_model(table), separation))
     useless = tuple(table.tests[t].id for t in range(len(table.tests)) if not (sep[t] >= separation).any())
     return groups, partners, useless
 
@@ -193,7 +153,7 @@ def isolation_minutes(loaded: LoadedRuleset, table: PredictionTable, hypothesis:
                       context: Context | None = None) -> tuple[float, float, set[str]]:
     """Mean minutes to conclude under one hypothesis, the fraction concluded right, and the tests asked."""
     if draw is None:
-        from assistant.simulate import draw_reading as draw
+        draw = draw_reading
     index = {t.id: i for i, t in enumerate(table.tests)}
     target = table.hypotheses[hypothesis].id
     minutes: list[float] = []
@@ -237,10 +197,12 @@ def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, se
     for h, hyp in enumerate(table.hypotheses):
         minutes: float | None = None
         right: float | None = None
-        if runs > 0 and hyp.prior > 0:
-            minutes, right, asked = isolation_minutes(loaded, table, h, runs, rng, draw)
-            chosen |= asked
         complaints = () if hyp.id == "none" else _complaints_leading_to(rs, hyp.id)
+        if runs > 0 and hyp.prior > 0:
+            # the technician starts from a complaint: the first that leads to this fault
+            context = Context(complaint=complaints[0]) if complaints else Context()
+            minutes, right, asked = isolation_minutes(loaded, table, h, runs, rng, draw, context)
+            chosen |= asked
         faults.append(FaultCoverage(hyp.id, hyp.prior, group_of.get(hyp.id), partners.get(hyp.id, ()),
                                     minutes, right, complaints))
     never = tuple(t.id for t in table.tests if runs > 0 and t.id not in chosen and t.id not in useless)
@@ -249,3 +211,39 @@ def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, se
     log.info("%s: %d groups, %d tests separate nothing, %d never chosen", rs.id, len(groups), len(useless), len(never))
     return Coverage(rs.id, rs.version, loaded.sha256, loaded.overlays, runs, seed, separation, tuple(faults),
                     groups, useless, never, without, states, tuple(t.id for t in rs.tests if t.state is None))
+
+
+def coverage_text(report: Coverage) -> str:
+    """The human view of a coverage report: a table per hypothesis, then the lists."""
+    lines = [f"{report.ruleset_id} {report.version}: {len(report.faults)} hypotheses"
+             + (f", {report.runs} simulated diagnoses each" if report.runs else ", no simulation")]
+    lines.extend(f"overlay: {o}" for o in report.overlays)
+    width = max([len("hypothesis")] + [len(f.id) for f in report.faults])
+    lines.append(f"{'hypothesis':<{width}}  {'prior':>6}  {'group':>5}  {'E[min]':>6}  {'right':>5}  complaints")
+    for f in report.faults:
+        group = "-" if f.group is None else str(f.group + 1)
+        minutes = "-" if f.expected_minutes is None else f"{f.expected_minutes:.1f}"
+        right = "-" if f.concluded_right is None else f"{f.concluded_right:.0%}"
+        complaints = ", ".join(f.complaints) if f.complaints else ("-" if f.id == "none" else "NONE")
+        lines.append(f"{f.id:<{width}}  {f.prior:>6.1%}  {group:>5}  {minutes:>6}  {right:>5}  {complaints}")
+    if report.weighted_minutes is not None:
+        lines.append(f"expected minutes to isolate, weighted by prior: {report.weighted_minutes:.1f}")
+    lines.append("")
+    if report.groups:
+        lines.append("ambiguity groups (no test tells these apart):")
+        lines.extend(f"  {i + 1}: {', '.join(g)}" for i, g in enumerate(report.groups))
+    else:
+        lines.append("ambiguity groups: none; every hypothesis can be told from every other")
+    never = [(t, "separates no two hypotheses") for t in report.separates_nothing]
+    never += [(t, f"never chosen in {report.runs * len(report.faults)} simulated diagnoses")
+              for t in report.never_chosen]
+    lines.append("tests that never change any decision:" if never else
+                 "tests that never change any decision: none")
+    lines.extend(f"  {t}: {why}" for t, why in never)
+    lines.append("faults no complaint leads to: " + (", ".join(report.without_complaint) or "none"))
+    lines.append("states the tests need:")
+    for state, label, tests in report.states:
+        lines.append(f"  {state} ({label}): {', '.join(tests) if tests else 'no test'}")
+    if report.tests_without_state:
+        lines.append(f"  no state: {', '.join(report.tests_without_state)}")
+    return "\n".join(lines)

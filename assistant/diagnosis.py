@@ -198,8 +198,14 @@ class Diagnosis:
     @classmethod
     def start(cls, loaded: LoadedRuleset, table: PredictionTable, context: Context,
               threshold: float | None = None, *, widen: Widener | None = None,
-              settings: PlannerSettings | None = None, model: EvidenceModel | None = None) -> Diagnosis:
-        """The first state of a diagnosis: priors from the table, complaint and rules."""
+              widen_to_pairs: bool = True, settings: PlannerSettings | None = None,
+              model: EvidenceModel | None = None) -> Diagnosis:
+        """The first state of a diagnosis: priors from the table, complaint and rules.
+
+        ``widen`` predicts pairs of faults when the readings fit nothing (default: the circuit
+        engine's ``predict`` with the table's sample count); ``widen_to_pairs=False`` turns
+        widening off. ``settings`` tunes the planner; ``model`` supplies a prebuilt evidence model.
+        """
         base = settings or PlannerSettings()
         thr = threshold if threshold is not None else loaded.ruleset.threshold
         if not 0.5 < thr <= 1.0:
@@ -214,7 +220,7 @@ class Diagnosis:
             loaded=loaded, table=table, model=model or evidence_model(table), engine=engine,
             settings=planner, context=context,
             base_log_prior=_complaint_log_prior(loaded, table, context, warnings),
-            widen=widen if widen is not None else _default_widener(loaded, table),
+            widen=None if not widen_to_pairs else widen if widen is not None else _default_widener(loaded, table),
             widened=False, warnings=tuple(warnings),
         )
         for w in warnings:
@@ -292,11 +298,12 @@ class Diagnosis:
         if explained.any():
             return
         # the reading whose removal lets the readings left be explained best
-        logs = [np.log(model.tests[t].likelihood(r)) for t, r in indexed]
-        total = self._log_prior + sum(logs)
+        with np.errstate(divide="ignore"):
+            logs = [np.log(model.tests[t].likelihood(r)) for t, r in indexed]
         best_i, best_score, best_h = 0, -math.inf, 0
-        for i, row in enumerate(logs):
-            without = total - row
+        for i in range(len(logs)):
+            without = self._log_prior + sum((row for j, row in enumerate(logs) if j != i),
+                                            np.zeros_like(self._log_prior))
             h = int(np.argmax(without))
             if without[h] > best_score:
                 best_i, best_score, best_h = i, float(without[h]), h
@@ -409,8 +416,11 @@ class Diagnosis:
                 return state
         return None
 
-    def next(self) -> Proposal | Conclusion:
-        """The next test to make, or the conclusion when the planner stops."""
+    def next(self, *, explain_choice: bool = True) -> Proposal | Conclusion:
+        """The next test to make, or the conclusion when the planner stops.
+
+        ``explain_choice=False`` leaves the proposal's ``why`` without suspects and outcomes
+        (for simulations, where nobody reads it)."""
         core = self._core
         p = self._posterior
         candidates = self._candidates()
@@ -429,8 +439,9 @@ class Diagnosis:
             return self._conclusion(stop.reason if stop else "no tests left",
                                     stop.certain if stop else False, stop.group if stop else ())
         rule = next((r for t, r in self._recommended if t == tests[choice.test_index].id), None)
-        return Proposal(tests[choice.test_index].id, choice.gain_bits, choice.cost_minutes,
-                        explain(p, core.model, choice, rule=rule))
+        why = (explain(p, core.model, choice, rule=rule) if explain_choice else
+               Why(tests[choice.test_index].id, choice.gain_bits, choice.cost_minutes, (), (), (), rule))
+        return Proposal(tests[choice.test_index].id, choice.gain_bits, choice.cost_minutes, why)
 
     def _proposal(self, t: int, rule_id: str | None, p: np.ndarray | None = None,
                   remeasure: bool = False) -> Proposal:

@@ -9,7 +9,9 @@ import math
 import re
 from datetime import datetime, timezone
 
-from assistant.record import Step
+from assistant.record import SessionRecord, Step
+from assistant.ruleset.defaults import fault_list
+from assistant.ruleset.model import Ruleset
 
 _UNIT_SYMBOL = {"ohm": "Ω", "ohms": "Ω", "Ω": "Ω", "v": "V", "a": "A"}
 # (factor, prefix) from large to small; the first whose scaled value is at least 1 is used.
@@ -32,7 +34,9 @@ def unit_symbol(unit: str | None) -> str:
 def _prefix_for(magnitude: float, unit: str) -> tuple[float, str]:
     if not unit or magnitude == 0 or not math.isfinite(magnitude):
         return 1.0, ""
-    allowed = _PREFIXES if unit == "Ω" else tuple(p for p in _PREFIXES if p[0] <= 1.0)
+    # meters show ohms as 0.9 Ω, not 900 mΩ; volts and amperes below one in milli and micro
+    allowed = (tuple(p for p in _PREFIXES if p[0] >= 1.0) if unit == "Ω"
+               else tuple(p for p in _PREFIXES if p[0] <= 1.0))
     for factor, prefix in allowed:
         if magnitude >= factor:
             return factor, prefix
@@ -118,6 +122,28 @@ def clean_text(text: str) -> str:
     return _CONTROL.sub("", text.replace("\r\n", "\n").replace("\r", "\n"))
 
 
+def complaint_text(record: SessionRecord) -> str:
+    """The complaint in words: the start step's text with the complaint id, or what was given."""
+    given = clean_text(record.complaint or "")
+    start = record.steps[0] if record.steps and record.steps[0].kind == "start" else None
+    words = clean_text(start.note or "") if start else ""
+    if words and given and words != given:
+        return f"{words} ({given})"
+    return words or given
+
+
 def format_suspects(top: tuple[tuple[str, float], ...], count: int = 3) -> str:
     """The leading suspects as one line: ``"a 93.0 % · b 5.0 %"``."""
     return " · ".join(f"{clean_text(h)} {format_probability(p)}" for h, p in top[:count])
+
+
+def ruleset_names(ruleset: Ruleset) -> dict[str, str]:
+    """What to call a ruleset's tests and faults: test titles, "component label: fault mode"."""
+    names: dict[str, str] = {"none": "no fault"}
+    labels = {c.id: c.label or c.id for c in ruleset.components}
+    for fault in fault_list(ruleset):
+        names[fault.id] = f"{labels.get(fault.component, fault.component)}: " \
+                          f"{fault.mode.replace('_', ' ')}"
+    for test in ruleset.tests:
+        names[test.id] = test.title or test.id
+    return names

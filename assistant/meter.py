@@ -138,7 +138,7 @@ class MeterProfile(_Frozen):
     """A multimeter as the predictions see it."""
 
     name: str
-    counts: int = Field(ge=100, le=1_000_000, description="display counts, e.g. 2000 (shows up to 1999)")
+    counts: int = Field(default=2000, ge=100, le=1_000_000, description="display counts, e.g. 2000 (shows up to 1999)")
     dc_volts: DcVolts
     ohms: Resistance
     dc_amps: DcAmps

@@ -18,6 +18,7 @@ Hypothesis 0 is always ``none`` (no fault in this circuit).
 from __future__ import annotations
 
 import dataclasses
+import functools
 import hashlib
 import json
 import logging
@@ -95,9 +96,10 @@ class PredictionTable:
 
 # --------------------------------------------------------------------------- computing the table
 
-ENGINE_VERSION = "1"  # bump when the circuit or meter models change: it keys the cache
+ENGINE_VERSION = "1"  # bump when the table's meaning changes; the engine's own source is hashed as well
 log = logging.getLogger("ohmtrail.predict")
 QUANTILES = (0.05, 0.5, 0.95)
+GROUP_NODE_VARIANTS = 2e6  # variants × nodes solved at once; bounds memory on large harnesses
 
 
 def hypotheses_of(ruleset: Ruleset, pairs: Sequence[tuple[str, str]] = ()
@@ -176,35 +178,47 @@ def predict(
 def compute_table(loaded: LoadedRuleset, meter: MeterProfile, *, samples: int = 64, seed: int = 0,
                   pairs: Sequence[tuple[str, str]] = (), nominal: bool = False) -> PredictionTable:
     """The prediction table, computed (no cache)."""
-    from assistant.circuit.measure import Env, measurement_for, observation_rows
+    from assistant.circuit.measure import Env, ResistanceMeasurement, measurement_for, observation_rows
     from assistant.circuit.netlist import CircuitModel
     from assistant.circuit.operating import operate_states
 
     ruleset = loaded.ruleset
     hyps, members = hypotheses_of(ruleset, pairs)
     model = CircuitModel(ruleset)
-    batch = model.batch(members, samples, seed=seed, nominal=nominal)
     meter_tests = {t.id: measurement_for(t, model) for t in ruleset.tests if t.kind != "observation"}
     probes: dict[str, list[tuple[str, str]]] = {}
     for m in meter_tests.values():
         for pair in m.probes():
             if pair not in probes.setdefault(m.state, []):
                 probes[m.state].append(pair)
-    points = operate_states(model, batch, probes)
-    blown = {f.id: np.logical_or.reduce([p.blown[f.id] for p in points.values()]) for f in model.fuses}
-    env = Env(model, batch, meter, points, blown, slice(0, samples))
+    ohms_probes: dict[tuple[str, tuple[str, ...], tuple[str, ...]], list[tuple[str, str]]] = {}
+    for m in meter_tests.values():
+        if isinstance(m, ResistanceMeasurement):
+            pair = (m.points()[0], m.points()[1])
+            if pair not in ohms_probes.setdefault(m.setup(), []):
+                ohms_probes[m.setup()].append(pair)
     H, T, S = len(hyps), len(ruleset.tests), samples
     shape = (H, T, S)
     out_samples, out_sigma, out_res = np.full(shape, np.nan), np.full(shape, np.nan), np.full(shape, np.nan)
-    observations: dict[int, np.ndarray] = {}
-    for t, test in enumerate(ruleset.tests):
-        if test.kind == "observation":
-            observations[t] = observation_rows(test, members)
-            continue
-        shown = meter_tests[test.id].display(env)
-        out_samples[:, t, :] = shown.samples.reshape(H, S)
-        out_sigma[:, t, :] = shown.sigma.reshape(H, S)
-        out_res[:, t, :] = shown.resolution.reshape(H, S)
+    # large circuits go in groups of hypotheses, each led by "none" (the jack choice and the
+    # lead placement of current tests are taken from the no-fault circuit)
+    per_group = max(1, int(GROUP_NODE_VARIANTS // (S * len(model.nodes))))
+    for lo in range(1, max(H, 2), per_group):
+        rows = [0] + list(range(lo, min(H, lo + per_group)))
+        group = [members[h] for h in rows]
+        batch = model.batch(group, samples, seed=seed, nominal=nominal)
+        points = operate_states(model, batch, probes)
+        blown = {f.id: np.logical_or.reduce([p.blown[f.id] for p in points.values()]) for f in model.fuses}
+        env = Env(model, batch, meter, points, blown, slice(0, samples), ohms_probes)
+        for t, test in enumerate(ruleset.tests):
+            if test.kind == "observation":
+                continue
+            shown = meter_tests[test.id].display(env)
+            out_samples[rows, t, :] = shown.samples.reshape(len(rows), S)
+            out_sigma[rows, t, :] = shown.sigma.reshape(len(rows), S)
+            out_res[rows, t, :] = shown.resolution.reshape(len(rows), S)
+    observations = {t: observation_rows(test, members) for t, test in enumerate(ruleset.tests)
+                    if test.kind == "observation"}
     log.info("predicted %d hypotheses x %d tests x %d samples for %s", H, T, S, ruleset.id)
     return PredictionTable(ruleset.id, loaded.sha256, hyps, test_infos(ruleset), out_samples, out_sigma,
                            out_res, observations)
@@ -256,6 +270,7 @@ def _cache_key(loaded: LoadedRuleset, meter: MeterProfile, samples: int, seed: i
                pairs: tuple[tuple[str, str], ...]) -> str:
     parts = {
         "engine": ENGINE_VERSION,
+        "engine_source": _engine_fingerprint(),
         "ruleset_sha256": loaded.sha256,
         "overlays": list(loaded.overlays),
         "ruleset": hashlib.sha256(loaded.ruleset.model_dump_json().encode()).hexdigest(),
@@ -265,6 +280,20 @@ def _cache_key(loaded: LoadedRuleset, meter: MeterProfile, samples: int, seed: i
         "pairs": [list(p) for p in pairs],
     }
     return hashlib.sha256(json.dumps(parts, sort_keys=True).encode()).hexdigest()[:40]
+
+
+@functools.lru_cache(maxsize=1)
+def _engine_fingerprint() -> str:
+    """SHA-256 over the source of the modules that compute the table: a changed model never reads
+    a stale cache."""
+    package = Path(__file__).resolve().parent
+    digest = hashlib.sha256()
+    for path in sorted((package / "circuit").glob("*.py")) + [package / "meter.py", package / "predict.py"]:
+        try:
+            digest.update(path.read_bytes())
+        except OSError:  # an installed package without its sources: the version alone keys it
+            digest.update(path.name.encode())
+    return digest.hexdigest()
 
 
 def _load_cached(key: str, loaded: LoadedRuleset) -> PredictionTable | None:

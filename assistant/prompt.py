@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import logging
 import re
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING, Any
 
 from prompt_toolkit import PromptSession, print_formatted_text
@@ -26,6 +26,7 @@ if TYPE_CHECKING:
     from prompt_toolkit.input import Input
     from prompt_toolkit.output import Output
 
+    from assistant.catalogue import Entry
     from assistant.page import ClosingPage
     from assistant.ruleset.model import Ruleset
 
@@ -76,13 +77,14 @@ class PromptSource:
         while True:
             try:
                 return self._session.prompt(message, completer=completer, default=default,
-                                            bottom_toolbar=self._toolbar, complete_while_typing=True).strip()
+                                            bottom_toolbar=self.toolbar, complete_while_typing=False).strip()
             except KeyboardInterrupt:
                 self.write(_CTRL_C)
             except EOFError as exc:
                 raise _Cancelled from exc
 
-    def _toolbar(self) -> str:
+    def toolbar(self) -> str:
+        """The bottom toolbar: the three leading suspects and their probabilities."""
         if not self._ranking:
             return " ohmtrail · help for commands"
         top = "  ".join(f"{h} {p:.0%}" for h, p in self._ranking[:3])
@@ -143,7 +145,7 @@ class PromptSource:
         if key != self._last_shown:
             self.write(render_page(question))
             self._last_shown = key
-        completer = self._completer(question)
+        completer = completer_for(question)
         while True:
             try:
                 text = self._line(f"{question.test.id}> ", completer=completer)
@@ -153,13 +155,6 @@ class PromptSource:
             action = self._command(text, question)
             if action is not None:
                 return action
-
-    def _completer(self, question: Question) -> NestedCompleter:
-        words: dict[str, Any] = {name: None for name in COMMANDS}
-        words["remeasure"] = {t: None for t in question.test_ids}
-        for outcome in question.page.outcomes:
-            words[outcome] = None
-        return NestedCompleter.from_nested_dict(words)
 
     def _command(self, text: str, question: Question) -> Action | None:
         """The action a typed line means, or None when it was handled here (help, why, a refusal)."""
@@ -216,7 +211,7 @@ class PromptSource:
                 return None
             if page.verification is None:
                 return Closing(repair)
-            self.write(render_page(page.verification))
+            self.write(render_page(page.verification, heading="Verification"))
             while True:
                 text = self._line(f"verification {page.verification.test.id}> ")
                 if not text:
@@ -228,6 +223,15 @@ class PromptSource:
         except _Cancelled:
             self.write("Ctrl-D: the session stays open; `ohmtrail resume` records the repair later.")
             return None
+
+
+def completer_for(question: Question) -> NestedCompleter:
+    """Tab completion at a test prompt: the commands, test ids after remeasure, the outcomes."""
+    words: dict[str, Any] = {name: None for name in COMMANDS}
+    words["remeasure"] = {t: None for t in question.test_ids}
+    for outcome in question.page.outcomes:
+        words[outcome] = None
+    return NestedCompleter.from_nested_dict(words)
 
 
 def _odometer(text: str) -> float:
@@ -242,7 +246,7 @@ def _odometer(text: str) -> float:
     if value < 0 or value > 5e6:
         raise ValueError(f"'{text}' is not a plausible odometer reading")
     unit = (match.group(2) or "km").lower()
-    return value * _MILE_KM if unit.startswith("mi") else value
+    return round(value * _MILE_KM if unit.startswith("mi") else value, 1)
 
 
 def _model_year(text: str) -> int:
@@ -250,3 +254,32 @@ def _model_year(text: str) -> int:
         raise ValueError(f"'{text}' is not a model year; type e.g. 2021")
     return int(text)
 
+
+
+def choose_ruleset(entries: Sequence[Entry], *, input: Input | None = None, output: Output | None = None,
+                   write: Callable[[str], None] | None = None) -> Entry:
+    """Let the technician pick a ruleset from the catalogue, listed by circuit family."""
+    if not entries:
+        raise SessionError("no rulesets found; give a RULESET file, or set OHMTRAIL_RULESETS to a folder of them")
+    say = write or (lambda text: print_formatted_text(text, output=output))
+    family = None
+    for i, entry in enumerate(entries, 1):
+        if entry.family != family:
+            family = entry.family
+            say(family)
+        say(f"  {i}. {entry.title} [{entry.id} {entry.version}]{' (shop)' if entry.origin != 'bundled' else ''}")
+    ids = [e.id for e in entries]
+    session: PromptSession[str] = PromptSession(input=input, output=output)
+    while True:
+        try:
+            text = session.prompt("Ruleset (number or id): ", completer=WordCompleter(ids)).strip()
+        except KeyboardInterrupt:
+            say("Ctrl-C: nothing started yet; Ctrl-D leaves.")
+            continue
+        except EOFError as exc:
+            raise SessionError("no ruleset chosen; nothing was started") from exc
+        if text.isdigit() and 1 <= int(text) <= len(entries):
+            return entries[int(text) - 1]
+        if text in ids:
+            return entries[ids.index(text)]
+        say(f"not taken: '{text}' is not one of 1-{len(entries)} or a ruleset id")

@@ -88,6 +88,7 @@ class SessionRecord(Record):
     diagnosis: str | None = None
     probability: float | None = None
     alternatives: tuple[tuple[str, float], ...] = ()
+    ambiguity_group: tuple[str, ...] = ()  # faults no test of the ruleset tells from the diagnosis (it first)
     stopped_because: str | None = None
     repair: str | None = None
     verification: str | None = None

@@ -21,38 +21,28 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from assistant import __version__
+from assistant import cautions as caution_texts
 from assistant.display import (
     clean_text,
+    complaint_text,
     format_probability,
     format_range,
     format_reading,
     format_stamp,
     format_stamp_short,
     format_suspects,
+    ruleset_names,
 )
-from assistant.errors import IntegrityError, OutputError
+from assistant.errors import IntegrityError, OhmtrailError, OutputError
 from assistant.export import check_record, export_json, export_session
 from assistant.record import SessionRecord, Step
 from assistant.report_pdf import pdf_from_content
+from assistant.ruleset import load_ruleset
 from assistant.trail import Drawing, render_trail
 
 log = logging.getLogger("ohmtrail.report")
 
 FORMATS = ("pdf", "html")
-
-# The cautions every claim report carries, after the ruleset's own (common practice).
-GENERAL_CAUTIONS = (
-    "Measure current only in series, on the meter's fused current jack, and move the red lead "
-    "back to the voltage jack afterwards. Never crank the engine or switch on a large load "
-    "through the current jack: use a DC clamp.",
-    "Never measure resistance on a powered circuit; isolate the part first.",
-    "Do not probe airbag or other pyrotechnic circuits with an ohmmeter.",
-    "Disable fuel and ignition before cranking tests, and keep clear of moving parts.",
-    "Hybrid and electric vehicles' high-voltage systems (orange cabling) are out of scope: they "
-    "need training, a CAT III 1000 V rated meter and leads, and insulated gloves.",
-    "Follow the vehicle maker's procedures, local codes and licensed practice; where they "
-    "differ from ohmtrail, they win. ohmtrail advises; the technician decides.",
-)
 
 _KIND_WORDS = {"start": "complaint taken", "reading": "reading", "skip": "skipped",
                "undo": "answer taken back", "remeasure": "re-measure", "note": "note",
@@ -85,9 +75,11 @@ class ReportContent:
     integrity_problem: str | None
     facts: tuple[tuple[str, str], ...]
     diagnosis: str
+    diagnosis_id: str | None  # the fault id, when the diagnosis is shown by its name
     diagnosis_probability: str
     stopped_because: str
     alternatives: tuple[tuple[str, str], ...]
+    cannot_tell_apart: tuple[str, ...]  # faults no test of the ruleset tells from the diagnosis
     repair: str
     verification: str
     steps: tuple[StepRow, ...]
@@ -126,6 +118,17 @@ def _step_row(step: Step, names: Mapping[str, str], undone: set[int]) -> StepRow
                    clean_text(step.verdict or ""), leading, step.index in undone)
 
 
+def report_cautions(record: SessionRecord) -> tuple[str, ...]:
+    """The cautions a report carries: the session's own, then the two for every page.
+
+    A record that kept none (written before cautions were recorded) gets every caution of
+    :mod:`assistant.cautions`, since which applied can no longer be told.
+    """
+    own = [clean_text(c).strip() for c in record.cautions]
+    chosen = [*own, *caution_texts.EVERY_PAGE] if any(own) else list(caution_texts.ALL)
+    return tuple(dict.fromkeys(c for c in chosen if c))
+
+
 def report_content(record: SessionRecord, names: Mapping[str, str] | None = None) -> ReportContent:
     """What the claim report of a record says, ready for any renderer to escape and lay out."""
     names = names or {}
@@ -146,7 +149,7 @@ def report_content(record: SessionRecord, names: Mapping[str, str] | None = None
              ("Finished", format_stamp(record.finished) or "not yet"),
              ("Technician", clean_text(record.technician or "") or "not given"),
              *_vehicle_facts(record),
-             ("Complaint", clean_text(record.complaint or "") or "not given"),
+             ("Complaint", complaint_text(record) or "not given"),
              ("Fault codes", ", ".join(clean_text(c) for c in record.fault_codes)
               or "none recorded"),
              ("Meter profile", clean_text(record.meter_profile)),
@@ -172,14 +175,17 @@ def report_content(record: SessionRecord, names: Mapping[str, str] | None = None
         facts=tuple(facts),
         diagnosis=(_name(record.diagnosis, names) if record.diagnosis
                    else "no diagnosis yet" if in_progress else "no fault certain enough"),
+        diagnosis_id=(clean_text(record.diagnosis) if record.diagnosis
+                      and _name(record.diagnosis, names) != record.diagnosis else None),
         diagnosis_probability=format_probability(record.probability),
         stopped_because=clean_text(record.stopped_because or ""),
         alternatives=tuple((_name(h, names), format_probability(p)) for h, p in record.alternatives),
+        cannot_tell_apart=tuple(_name(f, names) for f in record.ambiguity_group
+                                if f != record.diagnosis),
         repair=clean_text(record.repair or "") or ("not yet done" if in_progress else "none recorded"),
         verification=verification or ("not yet made" if in_progress else "none recorded"),
         steps=tuple(_step_row(s, names, undone) for s in record.steps),
-        cautions=tuple(dict.fromkeys([*(clean_text(c) for c in record.cautions),
-                                      *GENERAL_CAUTIONS])),
+        cautions=report_cautions(record),
         digest=str(integrity["digest"]), step_count=int(integrity["step_count"]),
         last_step_digest=str(integrity["last_step_digest"] or "none (no steps)"),
         generator=f"ohmtrail {__version__}")
@@ -227,12 +233,17 @@ def report_html(record: SessionRecord, names: Mapping[str, str] | None = None) -
     parts.append("</table><h2>Diagnosis</h2>")
     prob = f" ({_e(c.diagnosis_probability)})" if c.diagnosis_probability else ""
     parts.append(f'<p class="diagnosis">{_e(c.diagnosis)}{prob}</p>')
+    if c.diagnosis_id:
+        parts.append(f"<p>Fault id: <code>{_e(c.diagnosis_id)}</code></p>")
     if c.stopped_because:
         parts.append(f"<p>Stopped because: {_e(c.stopped_because)}</p>")
     if c.alternatives:
         parts.append('<p>Alternatives left:</p><table class="facts">')
         parts += [f"<tr><th>{_e(h)}</th><td>{_e(p)}</td></tr>" for h, p in c.alternatives]
         parts.append("</table>")
+    if c.cannot_tell_apart:
+        parts.append("<p>No test of the ruleset can tell the diagnosis from: "
+                     f"{_e('; '.join(c.cannot_tell_apart))}.</p>")
     parts.append(f"<h2>Repair</h2><p>{_e(c.repair)}</p>")
     parts.append(f"<h2>Verification</h2><p>{_e(c.verification)}</p>")
     parts.append('<h2>Steps</h2><table class="steps"><tr><th>#</th><th>time (UTC)</th><th>step</th>'
@@ -263,7 +274,7 @@ def report_pdf(record: SessionRecord, names: Mapping[str, str] | None = None) ->
     drawing = render_trail(record, "png", names)
     return pdf_from_content(report_content(record, names),
                             drawing.data if drawing.format == "png" else None,
-                            drawing.hint)
+                            drawing.hint, drawing.node_spans)
 
 
 def render_report(record: SessionRecord, fmt: str = "pdf",
@@ -291,12 +302,36 @@ def output_stem(session_id: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", session_id).strip("._") or "session"
 
 
+def session_names(record: SessionRecord) -> dict[str, str]:
+    """Test titles and fault names from the ruleset file the session used, if it is unchanged.
+
+    Empty (so that ids are shown) when the record names no file, the file cannot be loaded,
+    or its SHA-256 differs from the one recorded: names from another version could mislead.
+    """
+    path = record.ruleset_path
+    if not path:
+        return {}
+    try:
+        loaded = load_ruleset(path)
+    except OhmtrailError as exc:
+        log.info("ruleset %s not loaded for names (%s); ids shown", path, exc)
+        return {}
+    if loaded.sha256 != record.ruleset_sha256:
+        log.warning("%s has changed since session %s was recorded; test and fault ids shown",
+                    path, record.id)
+        return {}
+    return ruleset_names(loaded.ruleset)
+
+
 def write_outputs(record: SessionRecord, folder: Path,
                   names: Mapping[str, str] | None = None) -> list[Path]:
     """Write a session's trail (SVG), report (PDF and HTML) and JSON export into ``folder``.
 
     Returns the paths written. Without graphviz's ``dot`` the trail is written as DOT source.
+    ``names`` defaults to :func:`session_names` of the record.
     """
+    if names is None:
+        names = session_names(record)
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:

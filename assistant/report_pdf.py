@@ -4,13 +4,14 @@ Takes the plain-text :class:`assistant.report.ReportContent` and escapes every t
 reportlab's paragraph markup, so that a note reading ``<b>`` prints as written. The text is set
 in the Bitstream Vera fonts that ship with reportlab (they have Ω, µ and the dashes, and embed
 with a text layer that PDF readers and pypdf can extract). The trail drawing, rendered to PNG,
-is cut into page-high slices at blank rows so that a long trail stays at full width.
+is cut into page-high slices between its nodes so that a long trail stays at full width.
 """
 
 from __future__ import annotations
 
 import io
 import logging
+from collections.abc import Sequence
 from typing import TYPE_CHECKING
 from xml.sax.saxutils import escape
 
@@ -32,6 +33,8 @@ from reportlab.platypus import (
     TableStyle,
 )
 
+from assistant.trail import PNG_DPI
+
 if TYPE_CHECKING:
     from assistant.report import ReportContent
 
@@ -44,7 +47,6 @@ _FONTS = {"regular": "OhmtrailSans", "bold": "OhmtrailSans-Bold",
           "italic": "OhmtrailSans-Italic", "bolditalic": "OhmtrailSans-BoldItalic"}
 _FILES = {"regular": "Vera.ttf", "bold": "VeraBd.ttf", "italic": "VeraIt.ttf",
           "bolditalic": "VeraBI.ttf"}
-_DPI = 150  # the PNG the trail module renders for the PDF
 
 
 def _register_fonts() -> None:
@@ -133,37 +135,48 @@ def _steps_table(content: ReportContent, st: dict[str, ParagraphStyle]) -> Table
     return table
 
 
-def _trail_slices(png: bytes) -> list[Flowable]:
-    """The trail PNG as full-width images, cut at blank rows to fit a page each."""
+def _cut_rows(height: int, spans: Sequence[tuple[float, float]], max_rows: int) -> list[int]:
+    """Rows to cut a picture at: each slice at most ``max_rows`` high, cut between nodes."""
+    covered = [(int(a * height) - 3, int(b * height) + 3) for a, b in spans]
+    cuts: list[int] = []
+    top = 0
+    while height - top > max_rows:
+        cut = top + max_rows
+        # the lowest row above the limit that no node covers; failing that, the limit itself
+        for row in range(cut, top + max_rows // 3, -1):
+            if not any(lo <= row <= hi for lo, hi in covered):
+                cut = row
+                break
+        cuts.append(cut)
+        top = cut
+    return cuts
+
+
+def _trail_slices(png: bytes, spans: Sequence[tuple[float, float]] = ()) -> list[Flowable]:
+    """The trail PNG as full-width images, cut between nodes to fit a page each."""
     from PIL import Image as PILImage
 
-    picture = PILImage.open(io.BytesIO(png)).convert("RGB")
-    scale = min(1.0, FRAME_WIDTH / (picture.width * 72.0 / _DPI))  # points per pixel factor
-    pt_per_px = 72.0 / _DPI * scale
+    drawn = PILImage.open(io.BytesIO(png)).convert("RGBA")
+    picture = PILImage.new("RGB", drawn.size, "white")  # dot's PNG background is transparent
+    picture.paste(drawn, mask=drawn.getchannel("A"))
+    scale = min(1.0, FRAME_WIDTH / (picture.width * 72.0 / PNG_DPI))
+    pt_per_px = 72.0 / PNG_DPI * scale
     max_rows = int(FRAME_HEIGHT * 0.92 / pt_per_px)
+    bounds = [0, *_cut_rows(picture.height, spans, max_rows), picture.height]
     slices: list[Flowable] = []
-    top = 0
-    while top < picture.height:
-        bottom = min(picture.height, top + max_rows)
-        if bottom < picture.height:
-            # move the cut up to a row with nothing drawn on it, so no text is cut in half
-            for row in range(bottom, max(top + max_rows // 2, bottom - 400), -1):
-                lo, hi = picture.crop((0, row, picture.width, row + 1)).convert("L").getextrema()
-                if lo >= 250:
-                    bottom = row
-                    break
+    for top, bottom in zip(bounds, bounds[1:]):
         piece = picture.crop((0, top, picture.width, bottom))
         buffer = io.BytesIO()
         piece.save(buffer, format="PNG")
         buffer.seek(0)
         slices.append(Image(buffer, width=piece.width * pt_per_px,
                             height=piece.height * pt_per_px, hAlign="LEFT"))
-        top = bottom
     return slices
 
 
 def pdf_from_content(content: ReportContent, trail_png: bytes | None,
-                     trail_hint: str | None = None) -> bytes:
+                     trail_hint: str | None = None,
+                     trail_spans: Sequence[tuple[float, float]] = ()) -> bytes:
     """The report as A4 PDF bytes; without a trail picture, a line says why it is missing."""
     _register_fonts()
     st = _styles()
@@ -177,21 +190,27 @@ def pdf_from_content(content: ReportContent, trail_png: bytes | None,
     prob = f" ({content.diagnosis_probability})" if content.diagnosis_probability else ""
     block: list[Flowable] = [Paragraph("Diagnosis", st["h2"]),
                              Paragraph(_p(content.diagnosis + prob), st["diagnosis"])]
+    if content.diagnosis_id:
+        block.append(Paragraph(_p("Fault id: " + content.diagnosis_id), st["body"]))
     if content.stopped_because:
         block.append(Paragraph(_p("Stopped because: " + content.stopped_because), st["body"]))
     if content.alternatives:
         block += [Spacer(1, 2 * mm), Paragraph("Alternatives left:", st["body"]),
                   _facts_table(content.alternatives, st)]
+    if content.cannot_tell_apart:
+        block.append(Paragraph(_p("No test of the ruleset can tell the diagnosis from: "
+                                  + "; ".join(content.cannot_tell_apart) + "."), st["body"]))
     story.append(KeepTogether(block))
     story += [Paragraph("Repair", st["h2"]), Paragraph(_p(content.repair), st["body"]),
               Paragraph("Verification", st["h2"]), Paragraph(_p(content.verification), st["body"]),
-              Paragraph("Steps", st["h2"]), _steps_table(content, st),
-              Paragraph("Decision trail", st["h2"])]
+              Paragraph("Steps", st["h2"]), _steps_table(content, st)]
+    heading = Paragraph("Decision trail", st["h2"])
     if trail_png is not None:
-        story += _trail_slices(trail_png)
+        slices = _trail_slices(trail_png, trail_spans)
+        story += [KeepTogether([heading, slices[0]]), *slices[1:]]
     else:
-        story.append(Paragraph(_p(trail_hint or "The trail drawing is not available."),
-                               st["body"]))
+        story += [heading, Paragraph(_p(trail_hint or "The trail drawing is not available."),
+                                     st["body"])]
     story.append(Paragraph("Cautions", st["h2"]))
     story += [Paragraph(_p("• " + text), st["body"]) for text in content.cautions]
     story += [Paragraph("Integrity", st["h2"]),

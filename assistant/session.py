@@ -84,15 +84,16 @@ class Engine:
 
 
 def engine_for_record(record: SessionRecord, meter: MeterProfile | None = None) -> Engine:
-    """The engine a stored session ran on: its ruleset file, unchanged (same SHA-256), predicted anew."""
+    """The engine a stored session ran on: its ruleset file and overlays, unchanged, predicted anew."""
     from assistant.ruleset.load import load_ruleset
 
     if not record.ruleset_path:
         raise SessionError(f"session {record.id} does not say which ruleset file it used")
-    loaded = load_ruleset(record.ruleset_path)
-    if loaded.sha256 != record.ruleset_sha256:
-        raise SessionError(f"ruleset {record.ruleset_path} has changed since session {record.id} started "
-                           "(its SHA-256 differs), so its readings would not mean the same")
+    overlays = [label.rsplit(" sha256:", 1)[0] for label in record.overlays]
+    loaded = load_ruleset(record.ruleset_path, overlays, beside=False)
+    if loaded.sha256 != record.ruleset_sha256 or loaded.overlays != record.overlays:
+        raise SessionError(f"ruleset {record.ruleset_path} or its overlays changed since session {record.id} "
+                           "started (SHA-256 differs), so its readings would not mean the same")
     return Engine.build(loaded, meter)
 
 
@@ -118,7 +119,7 @@ class Session:
         self.id = record.id
         self._record = record
         self._steps: list[Step] = list(record.steps)
-        self._answers: list[int] = []  # indices of the reading steps now in effect, for undo
+        self._answers: list[int] = []  # the reading and skip steps now in effect, the last to undo first
         self._pending = pending  # a remeasure asked for: the next question
         self._rules = set(diagnosis.rules_fired)
 
@@ -183,6 +184,7 @@ class Session:
                 self._pending = None
             elif step.kind == "skip" and step.test_id:
                 self.diagnosis = self.diagnosis.skip(step.test_id)
+                self._answers.append(step.index)
                 self._pending = None
             elif step.kind == "undo":
                 self.diagnosis = self.diagnosis.undo()
@@ -271,7 +273,8 @@ class Session:
         elif isinstance(action, Skip):
             self.diagnosis = self.diagnosis.skip(test_id)
             self._pending = None
-            self._write("skip", test_id=test_id, top=self._top())
+            step = self._write("skip", test_id=test_id, top=self._top())
+            self._answers.append(step.index)
             self._fired(source)
         elif isinstance(action, Undo):
             self._undo(source)
@@ -305,6 +308,9 @@ class Session:
             verdict=verdict(reading, page), top=self._top(),
         )
         self._answers.append(step.index)
+        lead, p = step.top[0] if step.top else ("-", 0.0)
+        source.tell(f"recorded {test.id}: {shown_reading(step)}" + (f" ({step.verdict})" if step.verdict else "")
+                    + f"; leading suspect {lead} {p:.0%}")
         self._fired(source)
         conflict = getattr(self.diagnosis, "conflict", None)
         if conflict is not None:
@@ -321,7 +327,12 @@ class Session:
         self._pending = None
         self._write("undo", refers_to=taken_back, top=self._top())
         what = self._steps[taken_back] if taken_back is not None else None
-        source.tell(f"took back {what.test_id}: {what.reading_text}" if what else "took back the last answer")
+        if what is None:
+            source.tell("took back the last answer")
+        elif what.kind == "skip":
+            source.tell(f"took back the skip of {what.test_id}")
+        else:
+            source.tell(f"took back {what.test_id}: {shown_reading(what)}")
 
     def _remeasure(self, test_id: str, source: ReadingSource) -> None:
         try:
@@ -341,6 +352,7 @@ class Session:
             self.id, status="concluded", diagnosis=conclusion.diagnosis,
             probability=float(conclusion.probability), alternatives=alternatives,
             stopped_because=conclusion.stopped_because, repair=repair,
+            ambiguity_group=tuple(getattr(conclusion, "group", ())),
             cautions=self.engine.pages.session_cautions(getattr(self.diagnosis, "cautions", ())),
         )
         self._record = self.store.load(self.id)
@@ -406,8 +418,22 @@ def summary_json(record: SessionRecord) -> dict[str, Any]:
         steps.append({"test": step.test_id, "kind": step.kind, "reading": reading if step.kind == "reading" else None,
                       "unit": step.unit, "top": [[h, p] for h, p in step.top]})
     return {"session": record.id, "ruleset": record.ruleset_id, "status": record.status,
-            "diagnosis": record.diagnosis, "probability": record.probability, "steps": steps,
+            "diagnosis": record.diagnosis, "probability": record.probability,
+            "ambiguity_group": list(record.ambiguity_group), "steps": steps,
             "stopped_because": record.stopped_because}
+
+
+def session_json(record: SessionRecord) -> dict[str, Any]:
+    """A stored session for ``ohmtrail sessions --json``: its header and every step, briefly."""
+    steps = [{"index": s.index, "kind": s.kind, "at": s.at, "test": s.test_id,
+              "reading": s.reading if s.reading is not None else s.reading_text, "unit": s.unit,
+              "verdict": s.verdict, "note": s.note} for s in record.steps]
+    return {"id": record.id, "ruleset": record.ruleset_id, "ruleset_version": record.ruleset_version,
+            "source": record.source, "vehicle": record.vehicle.model_dump(), "technician": record.technician,
+            "complaint": record.complaint, "fault_codes": list(record.fault_codes), "started": record.started,
+            "finished": record.finished, "status": record.status, "step_count": len(record.steps),
+            "diagnosis": record.diagnosis, "probability": record.probability,
+            "ambiguity_group": list(record.ambiguity_group), "steps": steps}
 
 
 def vehicle_text(vehicle: VehicleInfo) -> str:

@@ -14,6 +14,7 @@ label, open a tag or add a node. Node names are ours (``s0``, ``s1``, ...), neve
 from __future__ import annotations
 
 import html
+import json
 import logging
 import textwrap
 from collections.abc import Iterable, Mapping
@@ -23,6 +24,7 @@ import graphviz
 
 from assistant.display import (
     clean_text,
+    complaint_text,
     format_clock,
     format_probability,
     format_range,
@@ -44,6 +46,7 @@ _FILL = {"in range": "#e8f3e8", "start": "#eef2f7", "conclusion": "#eef2f7",
          "repair": "#f4f0e6", "verification": "#e8f3e8"}
 _OUT_OF_RANGE_FILL = "#fbe6d4"
 _GREY = "#777777"
+PNG_DPI = 150  # resolution of the png drawing, also the one the PDF report embeds
 
 
 def html_text(text: str | None, width: int = MAIN_WIDTH) -> str:
@@ -61,6 +64,11 @@ def html_text(text: str | None, width: int = MAIN_WIDTH) -> str:
     if not any(lines):
         return "&#160;"  # graphviz refuses an empty <FONT> or <I> element
     return '<BR ALIGN="LEFT"/>'.join(html.escape(line, quote=True) for line in lines)
+
+
+def _nbsp(text: str) -> str:
+    # keeps "98.1 %" on one line when a label wraps
+    return text.replace(" ", "\xa0")
 
 
 def _name(key: str, names: Mapping[str, str]) -> str:
@@ -91,20 +99,20 @@ def _head(step: Step, title: str, *, grey: bool = False) -> str:
 def _suspects(top: tuple[tuple[str, float], ...], names: Mapping[str, str]) -> str:
     if not top:
         return ""
-    parts = [f"{_name(h, names)} {format_probability(p)}" for h, p in top[:3]]
+    parts = [f"{_name(h, names)}\xa0{_nbsp(format_probability(p))}" for h, p in top[:3]]
     return ('<FONT POINT-SIZE="9">leading: '
-            + html_text("; ".join(parts), MAIN_WIDTH - 9) + "</FONT>")
+            + html_text("\n".join(parts), MAIN_WIDTH - 9) + "</FONT>")
 
 
 def _reading_rows(step: Step, names: Mapping[str, str], *, struck: bool) -> list[str]:
     read = html_text(format_reading(step) or "-", 20)
-    expected = html_text(format_range(step.expected_low, step.expected_high, step.unit) or "-", 22)
+    expected = html_text(format_range(step.expected_low, step.expected_high, step.unit), 22)
     verdict = html_text(step.verdict or "", 14)
     if struck:
         read, verdict = f"<S>{read}</S>", f"<S>{verdict}</S>"
     verdict_fill = None if struck else (_FILL["in range"] if step.verdict == "in range"
                                         else _OUT_OF_RANGE_FILL if step.verdict else None)
-    rows = [_cell(f"read <B>{read}</B>") + _cell(f"healthy {expected}")
+    rows = [_cell(f"read <B>{read}</B>") + _cell(f"healthy {expected}" if expected else "")
             + _cell(f"<B>{verdict}</B>" if verdict else "", bgcolor=verdict_fill)]
     if step.top and not struck:
         rows.append(_cell(_suspects(step.top, names), colspan=3))
@@ -125,7 +133,7 @@ def _complaint_label(record: SessionRecord, start: Step | None,
                         else None, str(vehicle.model_year) if vehicle.model_year else None) if b]
     rows = [_cell("<B>Complaint</B>" + (f"  {html.escape(format_clock(start.at))}"
                                         if start else ""), colspan=3),
-            _cell(html_text(record.complaint or "(none given)"), colspan=3)]
+            _cell(html_text(complaint_text(record) or "(none given)"), colspan=3)]
     if bits:
         rows.append(_cell('<FONT POINT-SIZE="9">vehicle: ' + html_text(" · ".join(bits))
                           + "</FONT>", colspan=3))
@@ -201,7 +209,8 @@ def _conclusion_rows(step: Step, record: SessionRecord, names: Mapping[str, str]
         verdict = (f"<B>{html_text(_name(record.diagnosis, names))}</B>  "
                    f"{format_probability(record.probability)}")
     elif best is not None:
-        verdict = (f"<B>{html_text(_name(best[0], names))}</B>  {format_probability(best[1])}")
+        verdict = (f"<B>no fault certain enough</B>; most likely "
+                   f"{html_text(_name(best[0], names))}\xa0{_nbsp(format_probability(best[1]))}")
     else:
         verdict = "<B>no diagnosis certain enough</B>"
     rows = [_head(step, "Conclusion"), _cell(verdict, colspan=3)]
@@ -211,7 +220,8 @@ def _conclusion_rows(step: Step, record: SessionRecord, names: Mapping[str, str]
                           + "</FONT>", colspan=3))
     others = record.alternatives or (ranking[1:] if ranking else ())
     if others:
-        parts = "; ".join(f"{_name(h, names)} {format_probability(p)}" for h, p in others[:3])
+        parts = "\n".join(f"{_name(h, names)}\xa0{_nbsp(format_probability(p))}"
+                           for h, p in others[:3])
         rows.append(_cell('<FONT POINT-SIZE="9">alternatives: ' + html_text(parts, MAIN_WIDTH - 14)
                           + "</FONT>", colspan=3))
     return rows
@@ -269,10 +279,11 @@ def trail_graph(record: SessionRecord, names: Mapping[str, str] | None = None) -
                 and step.index not in undone:
             last_reading[step.test_id] = name
         spine_prev = name
-    if record.status == "open":
-        graph.node("open", _table([_cell("<B>in progress</B>: the session is still open",
-                                         colspan=3)], color=_GREY, dashed=True))
-        graph.edge(spine_prev, "open", style="dashed")
+    ending = {"open": "<B>in progress</B>: the session is still open",
+              "abandoned": "<B>abandoned</B> before a conclusion"}.get(record.status)
+    if ending:
+        graph.node("end", _table([_cell(ending, colspan=3)], color=_GREY, dashed=True))
+        graph.edge(spine_prev, "end", style="dashed")
     return graph
 
 
@@ -288,6 +299,9 @@ class Drawing:
     data: bytes
     format: str
     hint: str | None = None
+    # For png: where each node lies, top and bottom as fractions of the picture's height, so
+    # that a long picture can be cut between nodes.
+    node_spans: tuple[tuple[float, float], ...] = ()
 
 
 def render_trail(record: SessionRecord, fmt: str = "svg",
@@ -303,7 +317,7 @@ def render_trail(record: SessionRecord, fmt: str = "svg",
     if fmt == "dot":
         return Drawing(source, "dot")
     if fmt == "png":
-        graph.graph_attr["dpi"] = "150"
+        graph.graph_attr["dpi"] = str(PNG_DPI)
     try:
         data = graph.pipe(format=fmt)
     except graphviz.ExecutableNotFound:
@@ -312,4 +326,22 @@ def render_trail(record: SessionRecord, fmt: str = "svg",
     except graphviz.CalledProcessError as exc:
         raise OutputError(f"graphviz could not draw the trail: "
                           f"{(exc.stderr or b'').decode('utf-8', 'replace').strip()}") from exc
-    return Drawing(bytes(data), fmt)
+    spans = _node_spans(graph) if fmt == "png" else ()
+    return Drawing(bytes(data), fmt, node_spans=spans)
+
+
+def _node_spans(graph: graphviz.Digraph) -> tuple[tuple[float, float], ...]:
+    layout = json.loads(graph.pipe(format="json"))
+    _, y0, _, y1 = (float(v) for v in layout["bb"].split(","))
+    # the picture holds the layout's bounding box, then the margin and graphviz's pad
+    # (0.0555 in, 4 pt, by default) on each side
+    margin = (float(graph.graph_attr.get("margin", "0"))
+              + float(graph.graph_attr.get("pad", "0.0555"))) * 72.0
+    total = (y1 - y0) + 2 * margin
+    spans = []
+    for obj in layout.get("objects", []):
+        if "pos" in obj and "height" in obj:
+            y = float(obj["pos"].split(",")[1])
+            half = float(obj["height"]) * 72.0 / 2
+            spans.append(((margin + y1 - y - half) / total, (margin + y1 - y + half) / total))
+    return tuple(sorted(spans))

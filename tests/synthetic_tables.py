@@ -24,7 +24,7 @@ RESOLUTION = {"V": 0.01, "ohm": 0.1, "A": 0.001}
 Spec = Any  # (mean, sd) | ("uniform", lo, hi) | "OL" | {"yes": p, "no": q}
 
 
-def test_infos(loaded: LoadedRuleset) -> tuple[TestInfo, ...]:
+def infos_of(loaded: LoadedRuleset) -> tuple[TestInfo, ...]:
     """The TestInfo of every test of a ruleset, as the circuit engine gives them."""
     infos = []
     for t in loaded.ruleset.tests:
@@ -100,7 +100,7 @@ TINY_DEFAULT = {"look_fuse": {"yes": 0.02, "no": 0.98}}
 def tiny_lamp() -> tuple[LoadedRuleset, PredictionTable]:
     """The one-lamp test ruleset and its synthetic table."""
     loaded = load_ruleset(TINY_LAMP)
-    table = build_table(hypotheses_of(loaded), test_infos(loaded), TINY_SPEC, default=TINY_DEFAULT)
+    table = build_table(hypotheses_of(loaded), infos_of(loaded), TINY_SPEC, default=TINY_DEFAULT)
     return loaded, table
 
 

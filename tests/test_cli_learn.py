@@ -101,3 +101,45 @@ def test_never_writes_over_the_ruleset(ruleset: Path, tmp_path: Path, capsys: py
 def test_learn_needs_a_source(ruleset: Path, capsys: pytest.CaptureFixture[str]) -> None:
     assert main(["learn", str(ruleset)]) == 1
     assert "needs --history FILE" in capsys.readouterr().err
+
+
+def test_closed_sessions_of_the_store_count(ruleset: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    from assistant.record import SessionRecord
+    from assistant.store import open_store
+
+    url = f"sqlite:///{tmp_path / 'sessions.db'}"
+    with open_store(url) as db:
+        for i in range(3):
+            db.create(SessionRecord(id=f"s{i}", ruleset_id="stop_lamps", ruleset_version="1.0.0",
+                                    ruleset_sha256="0" * 64, started="2026-05-01T08:00:00Z", status="closed",
+                                    diagnosis="c40.high_resistance", repair="Cleaned C40"))
+    assert main(["learn", str(ruleset), "--db", url]) == 0
+    out = capsys.readouterr().out
+    assert "3 repairs counted" in out
+    assert next(ln for ln in out.splitlines() if ln.startswith("c40.high_resistance ")).split()[1] == "3"
+
+
+def test_simulate_and_predict_take_the_overlay(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+                                               capsys: pytest.CaptureFixture[str]) -> None:
+    import json
+
+    from assistant.scaffold import write_scaffold
+
+    monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
+    lamp = write_scaffold("lamp", "plate", tmp_path / "plate.yaml")
+    overlay = tmp_path / "o.yaml"
+    overlay.write_text("overlay: 1\nruleset: plate\nweights:\n  g_point.high_resistance: 40\n", encoding="utf-8")
+
+    def prior(argv: list[str]) -> float:
+        assert main(argv) == 0
+        data = json.loads(capsys.readouterr().out)
+        return next(p["prior"] for p in data["per_hypothesis"] if p["hypothesis"] == "g_point.high_resistance")
+
+    plain = prior(["simulate", str(lamp), "--trials", "1", "--json"])
+    learned = prior(["simulate", str(lamp), "--trials", "1", "--json", "--overlay", str(overlay)])
+    rs = load_ruleset(lamp).ruleset
+    total = rs.none_weight + sum(f.weight for f in fault_list(rs))
+    assert plain == pytest.approx(2.0 / total)  # the ground type's default weight
+    assert learned == pytest.approx(40.0 / (total - 2.0 + 40.0))
+    assert main(["predict", str(lamp), "--json", "--overlay", str(tmp_path / "missing.yaml")]) == 1
+    assert "missing.yaml: no such file" in capsys.readouterr().err

@@ -103,3 +103,16 @@ def test_closed_sessions_with_a_repair_count() -> None:
     assert (repair.fault_id, repair.vehicle, repair.date, repair.odometer_km) == (
         "g_rear.high_resistance", "CV2-044", dt.date(2026, 5, 1), 90500)
     assert repair.source == "session s-closed-g_rear.high_resistance"
+
+
+def test_closed_sessions_are_read_from_the_store(tmp_path: Path) -> None:
+    from assistant.history import repairs_from_store
+    from assistant.store import open_store
+
+    url = f"sqlite:///{tmp_path / 'sessions.db'}"
+    with open_store(url) as db:
+        for record in (_record("closed", "g_rear.high_resistance", "Cleaned and refitted G30"),
+                       _record("concluded", "f12.blown", "Replaced F12")):
+            db.create(record)
+    (repair,) = repairs_from_store(url)
+    assert repair.fault_id == "g_rear.high_resistance" and repair.vehicle == "CV2-044"

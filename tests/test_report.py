@@ -21,7 +21,6 @@ from assistant.errors import OutputError
 from assistant.export import seal_steps, session_digest, verify_export
 from assistant.record import SessionRecord
 from assistant.report import (
-    GENERAL_CAUTIONS,
     render_report,
     report_content,
     report_html,
@@ -54,7 +53,7 @@ def test_the_pdf_reads_back_with_the_diagnosis_and_the_facts() -> None:
                      "Left stop lamp is dim; the others are bright", "Technician 04 (demo)",
                      "stop_lamps version 1.0.0", "default", "none recorded",
                      "Cut back the corroded ground wire", "drop_left_ground: 12 mV, healthy 4–31 mV",
-                     "airbag", "Session digest (SHA-256):"):
+                     "pedal prop must not slip", "Session digest (SHA-256):"):
         assert expected in text, expected
     # every step is there with its time; the long hashes may wrap, so compare without spaces
     for step in record.steps:
@@ -157,12 +156,17 @@ def test_a_record_edited_in_the_store_says_so_at_the_top() -> None:
 
 
 def test_the_report_carries_the_cautions() -> None:
+    from assistant import cautions
+
     record = load_session()
     content = report_content(record)
-    assert content.cautions[: len(record.cautions)] == record.cautions
-    assert set(GENERAL_CAUTIONS) <= set(content.cautions)
+    assert content.cautions == record.cautions + cautions.EVERY_PAGE
     text = pdf_text(render_report(record, "pdf"))
-    assert "fused current jack" in text and "maker's procedures" in text
+    assert "maker's procedures" in text and "high-voltage cabling" in text
+    # a record that kept no cautions gets them all: which applied can no longer be told
+    bare = record.model_copy(update={"cautions": ()})
+    assert report_content(bare).cautions == cautions.ALL
+    assert "fused current jack" in pdf_text(render_report(bare, "pdf"))
 
 
 def test_write_outputs_writes_the_four_files_with_one_digest(tmp_path: Path) -> None:
@@ -198,22 +202,80 @@ def test_without_dot_the_report_says_why_the_drawing_is_missing(
 
 
 @needs_dot
-def test_a_long_trail_is_cut_into_page_high_slices() -> None:
+def test_a_long_trail_is_cut_between_nodes_into_page_high_slices() -> None:
     from reportlab.platypus import Image
 
-    from assistant.report_pdf import FRAME_HEIGHT, FRAME_WIDTH, _trail_slices
+    from assistant.report_pdf import FRAME_HEIGHT, FRAME_WIDTH, _cut_rows, _trail_slices
     from assistant.trail import render_trail
 
     record = load_session()
     steps = [record.steps[0]] + [s.model_copy(update={"index": i})
                                  for i, s in enumerate(list(record.steps[2:11]) * 4, start=1)]
     long = record.model_copy(update={"steps": tuple(steps), "status": "open"})
-    slices = _trail_slices(render_trail(long, "png").data)
+    drawing = render_trail(long, "png")
+    assert drawing.node_spans  # one span per node, as fractions of the picture's height
+    assert all(0.0 <= a < b <= 1.0 for a, b in drawing.node_spans)
+    slices = _trail_slices(drawing.data, drawing.node_spans)
     assert len(slices) >= 2
     assert all(isinstance(s, Image) and s.drawHeight <= FRAME_HEIGHT for s in slices)
     assert all(s.drawWidth <= FRAME_WIDTH + 0.01 for s in slices)
+    height = 10_000
+    for cut in _cut_rows(height, drawing.node_spans, 2_000):
+        assert not any(a * height <= cut <= b * height for a, b in drawing.node_spans)
+
+
+def test_cut_rows_fall_between_spans_and_respect_the_limit() -> None:
+    from assistant.report_pdf import _cut_rows
+
+    spans = [(0.0, 0.18), (0.2, 0.38), (0.4, 0.58), (0.6, 0.78), (0.8, 1.0)]
+    cuts = _cut_rows(1000, spans, 300)
+    assert cuts == [196, 396, 596, 796]  # the lowest free row under each limit (3 rows clear)
+    assert _cut_rows(1000, [], 300) == [300, 600, 900]  # no spans known: cut at the limit
+    assert _cut_rows(200, spans, 300) == []
 
 
 def test_an_unknown_report_format_is_a_clear_error() -> None:
     with pytest.raises(OutputError, match="unknown report format"):
         render_report(load_session(), "docx")
+
+
+STOP_LAMPS = Path(__file__).parent.parent / "rulesets" / "lamp" / "stop_lamps.yaml"
+
+
+def test_ruleset_names_cover_every_test_and_fault() -> None:
+    from assistant.display import ruleset_names
+    from assistant.ruleset import fault_list, load_ruleset
+
+    ruleset = load_ruleset(STOP_LAMPS).ruleset
+    names = ruleset_names(ruleset)
+    assert set(names) == {"none"} | {f.id for f in fault_list(ruleset)} | {t.id for t in ruleset.tests}
+    assert names["w_left_gnd.high_resistance"] == "left lamp ground wire, black: high resistance"
+    assert names["drop_left_ground"] == "Voltage drop on the left lamp's ground side"
+
+
+def test_the_report_names_tests_and_faults_from_the_unchanged_ruleset(tmp_path: Path) -> None:
+    from assistant.report import session_names
+
+    from assistant.ruleset import load_ruleset
+
+    # the bundled ruleset moves on; the session is taken to have used it as it is now
+    record = load_session().model_copy(update={"ruleset_path": str(STOP_LAMPS),
+                                               "ruleset_sha256": load_ruleset(STOP_LAMPS).sha256})
+    names = session_names(record)
+    page = report_html(record, names)
+    assert "left lamp ground wire, black: high resistance (98.1 %)" in page
+    assert "Fault id: <code>w_left_gnd.high_resistance</code>" in page
+    assert "reading: Voltage drop on the left lamp&#x27;s ground side" in page
+    # a ruleset file that changed since the session, or is gone, gives ids instead
+    changed = tmp_path / "stop_lamps.yaml"
+    changed.write_text(STOP_LAMPS.read_text("utf-8") + "\n# edited\n", encoding="utf-8")
+    assert session_names(record.model_copy(update={"ruleset_path": str(changed)})) == {}
+    assert session_names(record.model_copy(update={"ruleset_path": str(tmp_path / "no")})) == {}
+
+
+def test_faults_that_no_test_tells_apart_are_named() -> None:
+    record = load_session().model_copy(update={
+        "ambiguity_group": ("w_left_gnd.high_resistance", "lamp_left.high_resistance")})
+    expected = "No test of the ruleset can tell the diagnosis from: lamp_left.high_resistance."
+    assert expected in report_html(record)
+    assert expected in pdf_text(render_report(record, "pdf"))

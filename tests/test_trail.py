@@ -187,3 +187,11 @@ def test_any_text_leaves_the_drawing_whole(text: str) -> None:
     plain = _node_names(graphviz.Source(dot_source(record)).pipe(format="json").decode())
     drawn = _node_names(graphviz.Source(dot_source(hostile)).pipe(format="json").decode())
     assert drawn == plain
+
+
+def test_a_conclusion_without_a_certain_fault_says_so() -> None:
+    record = load_session().model_copy(update={"diagnosis": None, "probability": None,
+                                               "status": "abandoned"})
+    source = dot_source(record)
+    assert "no fault certain enough</B>; most likely w_left_gnd.high_resistance" in source
+    assert "<B>abandoned</B> before a conclusion" in source

@@ -8,8 +8,8 @@ The four generic modes apply to any part:
   holder does not see it;
 - ``short_to_ground`` / ``short_to_power``: a resistance, log-uniform over the range (default
   0.01-0.5 ohm), from the node ``at`` (default the part's last node, or its first when the last
-  is the node it would be shorted to) to the ruleset's ground, or to its power node (default the
-  first battery's positive).
+  is the ground or the node it would be shorted to) to the ruleset's ground, or to the fault's ``to`` node
+  where the format has it, else the ruleset's power node (default the first battery's positive).
 
 Type-specific modes (``blown``, ``filament_open``, ``stuck_open``, ``stuck_closed``, ``seized``,
 ``worn``, ``discharged``, ``failing``, ``no_output``, ``low_output``, ``internal_fault``,
@@ -80,11 +80,15 @@ def short_nodes(fault: Fault, part: Part, ground: str, power: str | None) -> tup
     if fault.mode == "short_to_ground":
         target = ground
     else:
-        if power is None:
+        if power is None and getattr(fault, "to", None) is None:
             raise CircuitError(f"fault '{fault.id}': the ruleset has no power node (no battery and no "
                                "'power:')", components=[part.id])
-        target = power
-    at = fault.at or (part.nodes[-1] if part.nodes[-1] != target else part.nodes[0])
+        target = getattr(fault, "to", None) or power
+    # default: the last node, unless that is the target or the ground (a load's short to power
+    # is at its feed, not from its ground terminal across the battery); any other node failing that
+    candidates = [n for n in reversed(part.nodes) if n not in (target, ground)]
+    candidates += [n for n in reversed(part.nodes) if n != target]
+    at = fault.at or (candidates[0] if candidates else target)
     if at == target:
         raise CircuitError(f"fault '{fault.id}' would short node '{at}' to itself", components=[part.id])
     return at, target

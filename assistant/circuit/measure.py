@@ -10,8 +10,9 @@
 - ``resistance``: the de-energised circuit (sources out, ``isolate`` taken out, or ``only`` the
   parts named, on the bench), driven by the meter's own source between the two nodes, plus the
   test leads; no path is OL.
-- ``current``: the meter in series at the part's first node with its shunt burden; the jack as
-  the test asks, or chosen from the current expected with no fault; a clamp above the jack.
+- ``current``: the meter in series at the part's first node with its shunt burden (``isolate``
+  taken out); the jack as the test asks, or chosen from the current expected with no fault; a
+  clamp above the jack. The leads are placed so the no-fault current reads positive.
 - ``observation``: no meter; the author's P(outcome) rows, picked by fault id, then component
   id, then ``default``.
 """
@@ -20,7 +21,7 @@ from __future__ import annotations
 
 from abc import ABC, abstractmethod
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, ClassVar
 
 import numpy as np
@@ -50,6 +51,23 @@ class Env:
     points: Mapping[str, OperatingPoint]  # every energised state, settled
     blown: Mapping[str, np.ndarray]  # fuses blown in any state (they stay blown)
     reference: slice  # the variants of the no-fault hypothesis (for the jack choice)
+    # de-energised set-ups (state, isolate, only) -> every probe pair the ohms tests need there
+    ohms_probes: Mapping[tuple[str, tuple[str, ...], tuple[str, ...]], Sequence[tuple[str, str]]] = field(
+        default_factory=dict)
+    _deenergised: dict[tuple[str, tuple[str, ...], tuple[str, ...]], OperatingPoint] = field(
+        default_factory=dict, repr=False)
+
+    def deenergised(self, setup: tuple[str, tuple[str, ...], tuple[str, ...]],
+                    probes: Sequence[tuple[str, str]]) -> OperatingPoint:
+        """The de-energised circuit of one set-up, solved once for all its ohms tests."""
+        point = self._deenergised.get(setup)
+        if point is None:
+            state, isolate, only = setup
+            wanted = tuple(self.ohms_probes.get(setup, ())) or tuple(probes)
+            point = operate(self.model, self.batch, state, energised=False, blown=self.blown, probes=wanted,
+                            isolate=isolate, only=only)
+            self._deenergised[setup] = point
+        return point
 
 
 def voltmeter(point: OperatingPoint, a: str, b: str, input_ohms: float) -> np.ndarray:
@@ -128,13 +146,17 @@ class ResistanceMeasurement(Measurement):
     def points(self) -> tuple[str, ...]:
         return tuple(self.test.between)
 
+    def setup(self) -> tuple[str, tuple[str, ...], tuple[str, ...]]:
+        """What the circuit is for this test: its state, the parts out, the parts alone."""
+        return (self.state, tuple(sorted(self.test.isolate)), tuple(sorted(self.test.only)))
+
     def display(self, env: Env) -> Display:
         a, b = self.points()
-        point = operate(self.model, env.batch, self.state, energised=False, blown=env.blown, probes=[(a, b)],
-                        isolate=self.test.isolate, only=self.test.only)
+        point = env.deenergised(self.setup(), [(a, b)])
         sol, net = point.solution, point.built.net
         ia, ib = net.index(a), net.index(b)
-        ohms = np.maximum(sol.response[:, ia, 0] - sol.response[:, ib, 0], 0.0)
+        k = point.probe(a, b)
+        ohms = np.maximum(sol.response[:, ia, k] - sol.response[:, ib, k], 0.0)
         ohms = np.where(sol.island[:, ia] == sol.island[:, ib], ohms + env.meter.ohms.lead_resistance, np.inf)
         return show(ohms, ohms_scales(env.meter), env.meter.ohms.accuracy)
 
@@ -146,25 +168,34 @@ class CurrentMeasurement(Measurement):
     def points(self) -> tuple[str, ...]:
         return (self.test.component,)
 
-    def jack(self, env: Env) -> str:
-        running = env.points[self.state].current(self.test.component)[env.reference]
-        expected = float(np.median(running)) if running.size else None
-        return choose_jack(env.meter, expected, self.test.jack)
+    @property
+    def isolate(self) -> tuple[str, ...]:
+        return tuple(getattr(self.test, "isolate", ()) or ())
 
     def display(self, env: Env) -> Display:
-        if self.test.component not in self.model.by_id:
-            raise CircuitError(f"test '{self.test.id}' names '{self.test.component}', not in the circuit")
-        jack = self.jack(env)
+        part = self.test.component
+        if part not in self.model.by_id:
+            raise CircuitError(f"test '{self.test.id}' names '{part}', not in the circuit")
+        base = env.points[self.state]
+        if self.isolate:
+            base = operate(self.model, env.batch, self.state, blown=env.blown, isolate=self.isolate)
+        healthy = base.current(part)[env.reference]
+        expected = float(np.median(healthy)) if healthy.size else 0.0
+        # the leads go so that the healthy current reads positive (red on the supply side)
+        sign = -1.0 if expected < 0 else 1.0
+        jack = choose_jack(env.meter, expected, self.test.jack)
         scales_ = jack_scales(env.meter, jack)  # type: ignore[arg-type]
         accuracy = current_accuracy(env.meter, jack)  # type: ignore[arg-type]
         if jack == "clamp":
-            return show(env.points[self.state].current(self.test.component), scales_, accuracy)
+            return show(sign * base.current(part), scales_, accuracy)
+        # auto-ranging within the jack: each range has its own shunt, so solve with each and
+        # keep, per variant, the lowest range that holds the current it lets through
         chosen: np.ndarray | None = None
         found = np.zeros(env.batch.size, dtype=bool)
         for sc in scales_:
-            point = operate(self.model, env.batch, self.state, blown=env.blown,
-                            shunt=Shunt(self.test.component, sc.burden))
-            amps = point.current(METER)
+            point = operate(self.model, env.batch, self.state, blown=env.blown, isolate=self.isolate,
+                            shunt=Shunt(part, sc.burden))
+            amps = sign * point.current(METER)
             chosen = amps if chosen is None else np.where(found, chosen, amps)
             found |= np.abs(amps) <= sc.limit
         assert chosen is not None

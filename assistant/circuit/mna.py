@@ -25,10 +25,9 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
-from scipy.sparse import coo_matrix
-from scipy.sparse.csgraph import connected_components
 
 from assistant.errors import CircuitError
 
@@ -97,6 +96,15 @@ class Solution:
     response: np.ndarray  # (B, n, K)
 
 
+def subset(net: Netlist, keep: np.ndarray) -> Netlist:
+    """The same netlist for only the variants where ``keep`` is true."""
+    branches = tuple(Branch(br.owner, br.a, br.b, br.ohms[keep], br.emf[keep], br.active[keep])
+                     for br in net.branches)
+    sources = tuple(Vccs(s.owner, s.out_p, s.out_n, s.ctrl_p, s.ctrl_n, s.siemens[keep], s.active[keep])
+                    for s in net.vccs)
+    return Netlist(net.nodes, branches, sources, int(np.count_nonzero(keep)))
+
+
 def solve(net: Netlist, probes: Sequence[tuple[int, int]] = ()) -> Solution:
     """Solve every variant of the netlist; ``probes`` are node pairs to drive with 1 A each.
 
@@ -118,90 +126,187 @@ def solve(net: Netlist, probes: Sequence[tuple[int, int]] = ()) -> Solution:
     K = len(probes)
     branches = net.branches
     zero_capable = [j for j, br in enumerate(branches) if bool(np.any(br.active & (br.ohms <= 0)))]
-    row_of = {j: n - 1 + r for r, j in enumerate(zero_capable)}
     N = n - 1 + len(zero_capable)
     _check_zero_ohm_loops(net)
     island = _islands(net)
+    pattern = _Pattern(net, zero_capable)
+    data = pattern.values(net)  # (B, nnz): the matrix entries of every variant
 
-    A = np.zeros((B, N, N))
+    ohms = np.stack([br.ohms for br in branches], axis=1) if branches else np.zeros((B, 0))
+    emf = np.stack([br.emf for br in branches], axis=1) if branches else np.zeros((B, 0))
+    active = np.stack([br.active for br in branches], axis=1) if branches else np.zeros((B, 0), dtype=bool)
+    norton = np.ones(len(branches), dtype=bool)
+    norton[zero_capable] = False
+    g = np.divide(1.0, ohms, out=np.zeros(ohms.shape), where=active & (ohms > 0) & norton[None, :])
     z = np.zeros((B, N, 1 + K))
-
-    def idx(node: int) -> int | None:
-        return None if node == GROUND else node - 1
-
-    for j, br in enumerate(branches):
-        ia, ib = idx(br.a), idx(br.b)
-        if j in row_of:
-            r = row_of[j]
-            on = br.active.astype(float)
-            if ia is not None:
-                A[:, ia, r] += on
-                A[:, r, ia] += on
-            if ib is not None:
-                A[:, ib, r] -= on
-                A[:, r, ib] -= on
-            A[:, r, r] = np.where(br.active, -br.ohms, 1.0)
-            z[:, r, 0] = np.where(br.active, br.emf, 0.0)
-            continue
-        g = np.divide(1.0, br.ohms, out=np.zeros(B), where=br.active & (br.ohms > 0))
-        j_src = g * br.emf
-        if ia is not None:
-            A[:, ia, ia] += g
-            z[:, ia, 0] += j_src
-        if ib is not None:
-            A[:, ib, ib] += g
-            z[:, ib, 0] -= j_src
-        if ia is not None and ib is not None:
-            A[:, ia, ib] -= g
-            A[:, ib, ia] -= g
-    for src in net.vccs:
-        gm = np.where(src.active, src.siemens, 0.0)
-        for out_node, sign in ((src.out_p, -1.0), (src.out_n, 1.0)):
-            io = idx(out_node)
-            if io is None:
-                continue
-            for ctrl, csign in ((src.ctrl_p, 1.0), (src.ctrl_n, -1.0)):
-                ic = idx(ctrl)
-                if ic is not None:
-                    A[:, io, ic] += sign * csign * gm
+    z[:, : n - 1, 0] = (g * emf) @ pattern.incidence.T
+    if zero_capable:
+        z[:, n - 1 :, 0] = np.where(active[:, zero_capable], emf[:, zero_capable], 0.0)
     for k, (pa, pb) in enumerate(probes):
-        ia, ib = idx(pa), idx(pb)
-        if ia is not None:
-            z[:, ia, 1 + k] += 1.0
-        if ib is not None:
-            z[:, ib, 1 + k] -= 1.0
+        if pa != GROUND:
+            z[:, pa - 1, 1 + k] += 1.0
+        if pb != GROUND:
+            z[:, pb - 1, 1 + k] -= 1.0
 
-    # pin the first node of every floating island
-    for v, i in zip(*_island_heads(island), strict=True):
-        A[v, i - 1, :] = 0.0
-        A[v, i - 1, i - 1] = 1.0
-        z[v, i - 1, :] = 0.0
+    # pin the first node of every floating island: its law becomes V = 0
+    hv, hi = _island_heads(island)
+    if hv.size:
+        pinned = np.zeros((B, N), dtype=bool)
+        pinned[hv, hi - 1] = True
+        data[pinned[:, pattern.rows]] = 0.0
+        data[hv, pattern.diagonal[hi - 1]] = 1.0
+        z[hv, hi - 1, :] = 0.0
 
-    try:
-        x = np.linalg.solve(A, z)
-    except np.linalg.LinAlgError as exc:
-        bad = _singular_variant(A)
-        names = _owners_near(net, A, bad)
-        raise CircuitError("the circuit cannot be solved (its equations are singular) around: "
-                           + ", ".join(names), components=names) from exc
+    x = np.empty_like(z)
+    sparse = N > SPARSE_ABOVE
+    step = max(1, int(CHUNK_ENTRIES // (N * (N if not sparse else 1))))
+    for lo in range(0, B, step):
+        hi_ = min(B, lo + step)
+        try:
+            x[lo:hi_] = (pattern.solve_sparse if sparse else pattern.solve_dense)(data[lo:hi_], z[lo:hi_])
+        except (np.linalg.LinAlgError, RuntimeError) as exc:
+            bad = lo + pattern.singular_variant(data[lo:hi_])
+            names = _owners_near(net, pattern.dense(data[bad]), bad)
+            raise CircuitError("the circuit cannot be solved (its equations are singular) around: "
+                               + ", ".join(names), components=names) from exc
     finite = np.isfinite(x).all(axis=(1, 2))
     if not finite.all():
         bad = int(np.argmin(finite))
-        names = _owners_near(net, A, bad)
+        names = _owners_near(net, pattern.dense(data[bad]), bad)
         raise CircuitError("the circuit has no finite solution around: " + ", ".join(names), components=names)
 
     volts = np.zeros((B, n))
     volts[:, 1:] = x[:, : n - 1, 0]
     response = np.zeros((B, n, K))
     response[:, 1:, :] = x[:, : n - 1, 1:]
-    currents = np.zeros((B, len(branches)))
-    for j, br in enumerate(branches):
-        if j in row_of:
-            currents[:, j] = np.where(br.active, x[:, row_of[j], 0], 0.0)
-        else:
-            g = np.divide(1.0, br.ohms, out=np.zeros(B), where=br.active & (br.ohms > 0))
-            currents[:, j] = g * (volts[:, br.a] - volts[:, br.b] - br.emf)
+    a_idx = np.array([br.a for br in branches], dtype=int)
+    b_idx = np.array([br.b for br in branches], dtype=int)
+    currents = g * (volts[:, a_idx] - volts[:, b_idx] - emf) if branches else np.zeros((B, 0))
+    if zero_capable:
+        currents[:, zero_capable] = np.where(active[:, zero_capable], x[:, n - 1 :, 0], 0.0)
     return Solution(volts, island, currents, response)
+
+
+SPARSE_ABOVE = 150  # unknowns above which each variant is factorised sparse, one by one
+CHUNK_ENTRIES = 2e6  # matrix entries held at once (16 MB of float64)
+DENSE_MAP_ENTRIES = 2e6  # stamp maps up to this size are plain arrays
+
+
+class _Pattern:
+    """Where every element puts its values in the matrix, shared by all variants.
+
+    The matrix entries of variant ``v`` are ``params[v] @ M``: ``params`` holds, per variant,
+    each Norton branch's conductance, each zero-ohm-capable branch's presence and diagonal, and
+    each controlled source's transconductance; ``M`` (sparse, parameters × entries) is the
+    signed stamp of each. The diagonal is always in the pattern, so a pinned row stays in it.
+    """
+
+    def __init__(self, net: Netlist, zero_capable: list[int]) -> None:
+        n = len(net.nodes)
+        self.n = n
+        self.size = n - 1 + len(zero_capable)
+        self.zero_capable = zero_capable
+        branches = net.branches
+        inc = np.zeros((n, len(branches)))
+        cols = np.arange(len(branches))
+        np.add.at(inc, ([br.a for br in branches], cols), 1.0)
+        np.add.at(inc, ([br.b for br in branches], cols), -1.0)
+        self.incidence = inc[1:]  # (n-1, E): +1 where a branch leaves a node, -1 where it enters
+        entries: dict[tuple[int, int], int] = {(i, i): i for i in range(self.size)}
+        params: list[int] = []
+        where: list[int] = []
+        weights: list[float] = []
+        q = 0
+
+        def put(row: int, col: int, weight: float) -> None:
+            where.append(entries.setdefault((row, col), len(entries)))
+            params.append(q)
+            weights.append(weight)
+
+        row_of = {j: n - 1 + r for r, j in enumerate(zero_capable)}
+        for j, br in enumerate(branches):
+            ends = [(i - 1, s) for i, s in ((br.a, 1.0), (br.b, -1.0)) if i != GROUND]
+            if j in row_of:
+                r = row_of[j]
+                for i, sign in ends:  # presence: the KCL column and the branch-law row
+                    put(i, r, sign)
+                    put(r, i, sign)
+                q += 1
+                put(r, r, 1.0)  # the diagonal: -r when present, 1 when removed
+            else:
+                for i, si in ends:
+                    for k, sk in ends:
+                        put(i, k, si * sk)
+            q += 1
+        for src in net.vccs:
+            for out_node, sign in ((src.out_p, -1.0), (src.out_n, 1.0)):
+                for ctrl, csign in ((src.ctrl_p, 1.0), (src.ctrl_n, -1.0)):
+                    if out_node != GROUND and ctrl != GROUND:
+                        put(out_node - 1, ctrl - 1, sign * csign)
+            q += 1
+        self.params = q
+        keys = sorted(entries, key=entries.__getitem__)
+        self.rows = np.array([k[0] for k in keys], dtype=int)
+        self.cols = np.array([k[1] for k in keys], dtype=int)
+        self.diagonal = np.arange(self.size)
+        if q * len(keys) <= DENSE_MAP_ENTRIES:
+            self.map: Any = np.zeros((q, len(keys)))
+            np.add.at(self.map, (params, where), weights)
+        else:  # scipy is imported only for large circuits: it costs a second to load
+            from scipy.sparse import csr_matrix
+
+            self.map = csr_matrix((weights, (params, where)), shape=(q, len(keys)))
+        # the entries in compressed-column order, for the sparse factorisation
+        order = np.lexsort((self.rows, self.cols))
+        self.csc_order = order
+        self.csc_indices = self.rows[order].astype(np.int32)
+        self.csc_indptr = np.searchsorted(self.cols[order], np.arange(self.size + 1)).astype(np.int32)
+
+    def values(self, net: Netlist) -> np.ndarray:
+        """(B, nnz) matrix entries of every variant."""
+        B = net.batch
+        row_of = set(self.zero_capable)
+        columns: list[np.ndarray] = []
+        for j, br in enumerate(net.branches):
+            if j in row_of:
+                columns.append(br.active.astype(float))
+                columns.append(np.where(br.active, -br.ohms, 1.0))
+            else:
+                columns.append(np.divide(1.0, br.ohms, out=np.zeros(B), where=br.active & (br.ohms > 0)))
+        for src in net.vccs:
+            columns.append(np.where(src.active, src.siemens, 0.0))
+        params = np.stack(columns, axis=1) if columns else np.zeros((B, 0))
+        if isinstance(self.map, np.ndarray):
+            return params @ self.map
+        return np.asarray(self.map.T @ params.T).T.copy()
+
+    def dense(self, data: np.ndarray) -> np.ndarray:
+        """The matrix (or matrices) of entries ``data``, dense."""
+        lead = data.shape[:-1]
+        flat = np.zeros((int(np.prod(lead, dtype=int)), self.size * self.size))
+        flat[:, self.rows * self.size + self.cols] = data.reshape(-1, data.shape[-1])
+        return flat.reshape(lead + (self.size, self.size))
+
+    def solve_dense(self, data: np.ndarray, z: np.ndarray) -> np.ndarray:
+        return np.linalg.solve(self.dense(data), z)
+
+    def solve_sparse(self, data: np.ndarray, z: np.ndarray) -> np.ndarray:
+        from scipy.sparse import csc_matrix
+        from scipy.sparse.linalg import splu
+
+        out = np.empty_like(z)
+        ordered = np.ascontiguousarray(data[:, self.csc_order], dtype=np.float64)
+        for v in range(data.shape[0]):
+            matrix = csc_matrix((ordered[v].copy(), self.csc_indices, self.csc_indptr),
+                                shape=(self.size, self.size))
+            out[v] = splu(matrix).solve(z[v])
+        return out
+
+    def singular_variant(self, data: np.ndarray) -> int:
+        for v in range(data.shape[0]):
+            if np.linalg.matrix_rank(self.dense(data[v])) < self.size:
+                return v
+        return 0
 
 
 def _edges(net: Netlist) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -214,22 +319,53 @@ def _edges(net: Netlist) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 
 def _islands(net: Netlist) -> np.ndarray:
-    """(B, n) connected-component label of every node; 0 is the ground's island."""
+    """(B, n) connected-component label of every node; 0 is the ground's island.
+
+    Variants share few distinct patterns of present elements, so each pattern is labelled once.
+    """
     n = len(net.nodes)
     a, b, active = _edges(net)
-    patterns, inverse = np.unique(active, axis=0, return_inverse=True)
-    labels = np.zeros((len(patterns), n), dtype=int)
-    for p, pattern in enumerate(patterns):
-        on = pattern.astype(bool)
-        graph = coo_matrix((np.ones(int(on.sum())), (a[on], b[on])), shape=(n, n))
-        _, lab = connected_components(graph, directed=False)
-        ground = lab[GROUND]
+    packed = np.packbits(active, axis=1)
+    pattern_of: dict[bytes, int] = {}
+    inverse = np.empty(net.batch, dtype=int)
+    firsts: list[int] = []
+    for v in range(net.batch):
+        key = packed[v].tobytes()
+        p = pattern_of.get(key)
+        if p is None:
+            p = pattern_of[key] = len(firsts)
+            firsts.append(v)
+        inverse[v] = p
+    labels = np.zeros((len(firsts), n), dtype=int)
+    for p, v in enumerate(firsts):
+        on = active[v]
+        if n > 200:
+            from scipy.sparse import coo_matrix
+            
+            graph = coo_matrix((np.ones(int(on.sum())), (a[on], b[on])), shape=(n, n))
+            lab = connected_components(graph, directed=False)[1]
+        else:
+            lab = _union_find(n, a[on], b[on])
         # relabel: ground's island 0, the others 1.. in order of their first node
-        order: dict[int, int] = {ground: 0}
-        for node_label in lab:
-            order.setdefault(int(node_label), len(order))
-        labels[p] = [order[int(x)] for x in lab]
-    return labels[np.asarray(inverse).reshape(-1)]
+        order: dict[int, int] = {int(lab[GROUND]): 0}
+        labels[p] = [order.setdefault(int(x), len(order)) for x in lab]
+    return labels[inverse]
+
+
+def _union_find(n: int, a: np.ndarray, b: np.ndarray) -> list[int]:
+    parent = list(range(n))
+
+    def find(x: int) -> int:
+        while parent[x] != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    for x, y in zip(a.tolist(), b.tolist(), strict=True):
+        rx, ry = find(x), find(y)
+        if rx != ry:
+            parent[max(rx, ry)] = min(rx, ry)
+    return [find(x) for x in range(n)]
 
 
 def _island_heads(island: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -292,18 +428,11 @@ def _loop_owners(net: Netlist, used: list[int], node: int) -> list[str]:
     return sorted({net.branches[j].owner for j in used if net.branches[j].a in reach})
 
 
-def _singular_variant(A: np.ndarray) -> int:
-    for v in range(A.shape[0]):
-        if np.linalg.matrix_rank(A[v]) < A.shape[1]:
-            return v
-    return 0
-
-
-def _owners_near(net: Netlist, A: np.ndarray, variant: int) -> list[str]:
+def _owners_near(net: Netlist, matrix: np.ndarray, variant: int) -> list[str]:
     """The components touching the nodes of the singular direction of one variant's matrix."""
     n = len(net.nodes)
     with np.errstate(all="ignore"):
-        matrix = np.nan_to_num(A[variant], nan=0.0, posinf=1e300, neginf=-1e300)
+        matrix = np.nan_to_num(matrix, nan=0.0, posinf=1e300, neginf=-1e300)
         _, _, vt = np.linalg.svd(matrix)
     null = np.abs(vt[-1])
     involved = {i + 1 for i in range(n - 1) if null[i] > 1e-6 * null.max()}

@@ -1,11 +1,12 @@
 """Operating points: the circuit solved until its relays, fuses and motors agree with it.
 
 A relay contact closes when its coil carries at least its pull-in current (a normally closed
-one opens); a fuse whose current exceeds rating × blow_factor is blown and the circuit solved
+one opens) and holds until the coil current falls below 40 % of it (drop-out, from memory); a
+relay that its own load makes chatter (a weak supply collapses when the contact closes) is taken
+as at rest. A fuse whose current exceeds rating × blow_factor is blown and the circuit solved
 again with it open; a motor that the supply would not drive forward against its back-EMF is
 taken as stopped (a motor nothing drives does not generate). Each variant of the batch settles on its own. Fuses and motors only change one
-way (a blown fuse stays blown, a stopped motor stays stopped), relays may go either way; a relay
-that never settles (a coil fed through its own contact) is an error naming it.
+way (a blown fuse stays blown, a stopped motor stays stopped), so every variant settles.
 
 A blown fuse stays blown in every state: :func:`operate_states` solves every energised state,
 takes the union of the fuses blown in any of them, and solves again until that union is stable,
@@ -20,13 +21,15 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from assistant.circuit.mna import Solution, solve
+from assistant.circuit.mna import Netlist, Solution, solve, subset
 from assistant.circuit.netlist import Batch, Built, CircuitModel, Shunt
 from assistant.errors import CircuitError
 
 log = logging.getLogger("ohmtrail.circuit")
 
 MAX_ROUNDS = 24
+DROP_OUT = 0.4  # a pulled-in relay holds down to this fraction of its pull-in current: from memory
+CHATTER_TOGGLES = 3  # a contact that changes this often in one solve is chattering
 STOPPED_AMPS = 1e-9  # a motor the supply drives no forward current into is not turning
 
 
@@ -64,38 +67,87 @@ def operate(
     isolate: Iterable[str] = (),
     only: Iterable[str] = (),
     shunt: Shunt | None = None,
+    start: OperatingPoint | None = None,
 ) -> OperatingPoint:
-    """Solve one state of a batch until relays, fuses and motors are consistent with it."""
+    """Solve one state of a batch until relays, fuses and motors are consistent with it.
+
+    Only the variants whose relays, fuses or motors changed are solved again each round. With
+    ``start`` (an earlier point of the same state and probes), the search resumes from it and
+    solves only the variants whose ``blown`` fuses differ from it.
+    """
     B = batch.size
     blown_now = {f.id: (np.array(blown[f.id], dtype=bool) if blown and f.id in blown else np.zeros(B, dtype=bool))
                  for f in model.fuses}
-    contacts = {c.id: np.full(B, c.normally_closed) for c in model.contacts}
+    pulled = {c.id: np.zeros(B, dtype=bool) for c in model.contacts}
+    toggles = {c.id: np.zeros(B, dtype=int) for c in model.contacts}
     stalled = {m.id: np.zeros(B, dtype=bool) for m in model.motors}
     probes = tuple(probes)
     isolate, only = tuple(isolate), tuple(only)
-    history: list[dict[str, np.ndarray]] = []
+    solution: Solution | None = None
+    todo = np.ones(B, dtype=bool)
+    if start is not None:
+        pulled = {c.id: start.contact_closed[c.id] ^ c.normally_closed for c in model.contacts}
+        stalled = {m: np.array(v) for m, v in start.stalled.items()}
+        blown_now = {f: blown_now[f] | start.blown[f] for f in blown_now}
+        todo = np.zeros(B, dtype=bool)
+        for f in blown_now:
+            todo |= blown_now[f] != start.blown[f]
+        solution = start.solution
     for _ in range(MAX_ROUNDS):
+        contacts = {c.id: pulled[c.id] ^ c.normally_closed for c in model.contacts}
         built = model.netlist(batch, state, energised=energised, contact_closed=contacts, blown=blown_now,
-                              stalled=stalled, isolate=isolate, only=only, shunt=shunt)
-        idx = [(built.net.index(a), built.net.index(b)) for a, b in probes]
-        sol = solve(built.net, idx)
-        point = OperatingPoint(state, built, sol, probes, contacts, blown_now, stalled)
+                              stalled=stalled, isolate=isolate, only=only, shunt=shunt,
+                              keep_nodes={n for pair in probes for n in pair})
+        if todo.any():
+            idx = [(built.net.index(a), built.net.index(b)) for a, b in probes]
+            solution = _solve_some(built.net, idx, todo, solution)
+        assert solution is not None
+        point = OperatingPoint(state, built, solution, probes, contacts, blown_now, stalled)
         if not energised:
             return point
-        new_contacts = {}
+        new_pulled = {}
         for c in model.contacts:
-            pulled = np.abs(point.current(c.coil)) >= float(model.by_id[c.coil].spec.pull_in)
-            new_contacts[c.id] = ~pulled if c.normally_closed else pulled
+            coil_amps = np.abs(point.current(c.coil))
+            pull_in = float(model.by_id[c.coil].spec.pull_in)
+            now = np.where(pulled[c.id], coil_amps >= DROP_OUT * pull_in, coil_amps >= pull_in)
+            toggles[c.id] = toggles[c.id] + (now != pulled[c.id])
+            # a relay its own load makes chatter cannot hold in: taken as at rest
+            new_pulled[c.id] = now & (toggles[c.id] < CHATTER_TOGGLES)
         new_blown = {f.id: blown_now[f.id] | (np.abs(point.current(f.id)) > f.blow_amps) for f in model.fuses}
-        new_stalled = {m.id: stalled[m.id] | (point.current(m.id) < STOPPED_AMPS) for m in model.motors}
-        same = (_equal(new_contacts, contacts) and _equal(new_blown, blown_now) and _equal(new_stalled, stalled))
-        if same:
-            return point
-        history.append(contacts)
-        contacts, blown_now, stalled = new_contacts, new_blown, new_stalled
-    chattering = sorted(c for c in contacts if any(not np.array_equal(h[c], contacts[c]) for h in history[-4:]))
-    raise CircuitError("the relay contacts never settle (a coil switched by its own contact?): "
-                       + ", ".join(chattering or sorted(contacts)), components=chattering)
+        new_stalled = stalled
+        changed = _changed(new_pulled, pulled, B) | _changed(new_blown, blown_now, B)
+        if not changed.any():
+            # motors are judged once relays and fuses have settled around them
+            new_stalled = {m.id: stalled[m.id] | (point.current(m.id) < STOPPED_AMPS) for m in model.motors}
+            changed = _changed(new_stalled, stalled, B)
+            if not changed.any():
+                return point
+        for c, chatter in toggles.items():
+            if (chatter == CHATTER_TOGGLES).any():
+                log.debug("relay contact %s chatters in %d variants: taken as at rest", c,
+                          int((chatter == CHATTER_TOGGLES).sum()))
+        pulled, blown_now, stalled, todo = new_pulled, new_blown, new_stalled, changed
+    raise CircuitError(f"the circuit in state '{state}' does not settle after {MAX_ROUNDS} rounds of relays, "
+                       "fuses and motors: " + ", ".join(sorted(pulled)), components=sorted(pulled))
+
+
+def _solve_some(net: Netlist, probes: list[tuple[int, int]], todo: np.ndarray,
+                previous: Solution | None) -> Solution:
+    """Solve the variants in ``todo``; the others keep their previous solution."""
+    if previous is None or todo.all():
+        return solve(net, probes)
+    part = solve(subset(net, todo), probes)
+    volts, island = previous.volts.copy(), previous.island.copy()
+    currents, response = previous.currents.copy(), previous.response.copy()
+    volts[todo], island[todo], currents[todo], response[todo] = part.volts, part.island, part.currents, part.response
+    return Solution(volts, island, currents, response)
+
+
+def _changed(new: Mapping[str, np.ndarray], old: Mapping[str, np.ndarray], size: int) -> np.ndarray:
+    out = np.zeros(size, dtype=bool)
+    for key, value in new.items():
+        out |= value != old[key]
+    return out
 
 
 def operate_states(
@@ -104,16 +156,14 @@ def operate_states(
     probes: Mapping[str, Sequence[tuple[str, str]]],
 ) -> dict[str, OperatingPoint]:
     """Every operating state of the ruleset, solved with the fuses any state blows blown in all."""
-    blown: dict[str, np.ndarray] | None = None
-    for _ in range(len(model.fuses) + 2):
-        points = {s: operate(model, batch, s, blown=blown, probes=probes.get(s, ())) for s in model.states}
+    points = {s: operate(model, batch, s, probes=probes.get(s, ())) for s in model.states}
+    for _ in range(len(model.fuses) + 1):
         union = {f.id: np.logical_or.reduce([p.blown[f.id] for p in points.values()]) for f in model.fuses}
-        if blown is not None and _equal(union, blown):
+        if all(_equal(union, p.blown) for p in points.values()):
             return points
-        if not any(u.any() for u in union.values()):
-            return points
-        blown = union
-    log.debug("fuse states still changing after %d passes", len(model.fuses) + 2)
+        points = {s: operate(model, batch, s, blown=union, probes=probes.get(s, ()), start=p)
+                  for s, p in points.items()}
+    log.debug("fuse states still changing after %d passes", len(model.fuses) + 1)
     return points
 
 

@@ -43,3 +43,19 @@ def test_every_component_type_and_test_kind_is_documented() -> None:
         assert f"| `{kind}` |" in text, f"test kind {kind} missing from the doc"
     for name in Ruleset.model_fields:
         assert f"| `{name}` |" in text, f"top-level field {name} missing from the doc"
+
+
+def test_default_fault_table_matches_defaults_py() -> None:
+    """Each type's row in the default-modes table names every default mode with its weight."""
+    from assistant.ruleset.defaults import DEFAULT_MODES
+
+    text = DOC.read_text(encoding="utf-8")
+    section = text.split("### Default fault modes", 1)[1].split("## Fault specs", 1)[0]
+    rows = {m.group(1): m.group(2) for m in re.finditer(r"^\| `(\w+)` \| (.*) \|$", section, re.MULTILINE)}
+    assert set(rows) == set(DEFAULT_MODES)
+    for type_name, modes in DEFAULT_MODES.items():
+        for mode, default in modes.items():
+            assert re.search(rf"`{mode}`†? {default.weight:g}\b", rows[type_name]), (type_name, mode)
+            if default.range_ohms is not None:
+                low, high = default.range_ohms
+                assert f"{low:g}–{high:g}" in rows[type_name], (type_name, mode)

@@ -1,0 +1,251 @@
+"""Simulated diagnoses: how well and how fast the planner finds each fault, against baselines.
+
+For every hypothesis and trial a full set of readings is drawn from the prediction table (a
+random Monte Carlo sample of the circuit plus the meter's error, shown at the meter's
+resolution); the planner runs on them to its stop, and the linear walk and half-split run on
+the very same draws. Then the noise-free version of the problem (each hypothesis shows its
+median reading, binned as the planner bins it) gives the planner's expected minutes and the
+exact optimum. Means are weighted by the hypotheses' priors.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from collections.abc import Callable
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+import numpy as np
+
+from assistant.baselines import (
+    WalkResult,
+    half_split,
+    linear_walk,
+    noise_free_outcomes,
+    optimal_cost,
+    voltage_path,
+    walk_readings,
+)
+from assistant.beliefs import EvidenceModel, build_model, format_value, posterior
+from assistant.diagnosis import Conclusion, Context, Diagnosis, evidence_model
+from assistant.planner import PlannerSettings, ambiguity_groups
+from assistant.predict import PredictionTable
+from assistant.reading import Reading
+from assistant.ruleset.load import LoadedRuleset
+
+log = logging.getLogger("ohmtrail.simulate")
+
+Progress = Callable[[int, int], None]
+OPTIMUM_SECONDS = 60.0
+
+
+def draw_reading(table: PredictionTable, hypothesis_index: int, test_index: int,
+                 rng: np.random.Generator, *, sample: int | None = None) -> Reading:
+    """A reading as the meter would show it if the hypothesis were true.
+
+    A random Monte Carlo sample (or ``sample``: the same one for every test of one simulated
+    vehicle, so that one fault magnitude shows in all its readings), plus the meter's error (uniform within its accuracy bound,
+    sqrt(3) standard uncertainties either side: JCGM 100:2008), quantised to the resolution of
+    the range in use; OL for an overload. Observations are drawn from their outcome row.
+    """
+    info = table.tests[test_index]
+    if info.kind == "observation":
+        row = table.observations.get(test_index)
+        k = len(info.outcomes)
+        probs = np.full(k, 1.0 / k) if row is None else np.clip(np.asarray(row[hypothesis_index], float), 0, None)
+        probs = probs / probs.sum() if probs.sum() > 0 else np.full(k, 1.0 / k)
+        outcome = info.outcomes[int(rng.choice(k, p=probs))]
+        return Reading(outcome, outcome=outcome)
+    s = int(rng.integers(table.samples.shape[2])) if sample is None else sample
+    x = float(table.samples[hypothesis_index, test_index, s])
+    if math.isinf(x) or math.isnan(x):
+        return Reading("-OL" if x < 0 else "OL", overload=True)
+    sigma = float(np.nan_to_num(table.sigma[hypothesis_index, test_index, s]))
+    step = float(table.resolution[hypothesis_index, test_index, s])
+    half_width = sigma * math.sqrt(3.0)
+    y = x + (float(rng.uniform(-half_width, half_width)) if half_width > 0 else 0.0)
+    if step > 0:
+        y = round(y / step) * step
+    return Reading(format_value(y, info.unit, step), value=y)
+
+
+@dataclass(frozen=True)
+class Figures:
+    """Accuracy, tests and minutes of one strategy, prior-weighted."""
+
+    accuracy: float
+    mean_tests: float
+    mean_minutes: float
+
+
+@dataclass(frozen=True)
+class SimulationResult:
+    """What ``ohmtrail simulate`` reports."""
+
+    ruleset: str
+    hypotheses: int
+    trials: int
+    seed: int
+    threshold: float
+    accuracy: float
+    mean_tests: float
+    mean_minutes: float
+    worst_minutes: float
+    linear_walk: Figures
+    half_split: Figures
+    planner_noise_free_minutes: float
+    optimal_noise_free_minutes: float | None
+    ambiguity_groups: tuple[tuple[str, ...], ...]
+    undecided: float  # prior-weighted share of runs that stopped without a certain diagnosis
+    per_hypothesis: tuple[dict[str, Any], ...] = field(default=())
+
+    def to_json(self) -> dict[str, Any]:
+        """The JSON shape of the command line (issue 4), with a few more keys."""
+        return {
+            "ruleset": self.ruleset,
+            "hypotheses": self.hypotheses,
+            "trials": self.trials,
+            "accuracy": self.accuracy,
+            "mean_tests": self.mean_tests,
+            "mean_minutes": self.mean_minutes,
+            "worst_minutes": self.worst_minutes,
+            "linear_walk": asdict(self.linear_walk),
+            "half_split": asdict(self.half_split),
+            "noise_free": {"planner_mean_minutes": self.planner_noise_free_minutes,
+                           "optimal_mean_minutes": self.optimal_noise_free_minutes},
+            "ambiguity_groups": [list(g) for g in self.ambiguity_groups],
+            "seed": self.seed,
+            "threshold": self.threshold,
+            "undecided": self.undecided,
+            "per_hypothesis": list(self.per_hypothesis),
+        }
+
+
+def _named(conclusion: Conclusion) -> str:
+    return conclusion.diagnosis if conclusion.diagnosis is not None else conclusion.ranking[0][0]
+
+
+def run_planner(start: Diagnosis, read: Callable[[int], Reading], limit: int = 200) -> tuple[Conclusion, int, float]:
+    """Drive a diagnosis to its stop with a reading source; (conclusion, tests, minutes)."""
+    d = start
+    tests, minutes = 0, 0.0
+    for _ in range(limit):
+        step = d.next(explain_choice=False)
+        if isinstance(step, Conclusion):
+            return step, tests, minutes
+        t = d.table.test_index(step.test_id)
+        d = d.answer(step.test_id, read(t))
+        tests += 1
+        minutes += step.cost_minutes
+    raise RuntimeError("the planner did not stop")  # pragma: no cover - every test is taken once
+
+
+def _walk_named(model: EvidenceModel, log_prior: np.ndarray, walk: WalkResult,
+                draws: dict[int, Reading]) -> int:
+    p = posterior(log_prior, model, [(t, draws[t]) for t in walk.tests])
+    return int(np.argmax(p))
+
+
+def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20, seed: int = 0,
+             threshold: float | None = None, settings: PlannerSettings | None = None,
+             progress: Progress | None = None, optimum_seconds: float = OPTIMUM_SECONDS) -> SimulationResult:
+    """Simulate ``trials`` diagnoses per hypothesis; see the module docstring."""
+    if trials < 1:
+        raise ValueError("trials must be at least 1")
+    rng = np.random.default_rng(seed)
+    model = evidence_model(table)
+    hyps = table.hypotheses
+    priors = np.array([h.prior for h in hyps], dtype=float)
+    priors = priors / priors.sum()
+    log_prior = np.log(np.clip(priors, 1e-300, None))
+    groups = ambiguity_groups(model, (settings or PlannerSettings()).ambiguity_tolerance)
+    group_of = {h: set(g) for g in groups for h in g}
+    start = Diagnosis.start(loaded, table, Context(), threshold, widen_to_pairs=False,
+                            settings=settings, model=model)
+    path = voltage_path(loaded.ruleset, table)
+    n_t = len(table.tests)
+
+    acc = np.zeros(len(hyps))
+    tests_used = np.zeros(len(hyps))
+    minutes_used = np.zeros(len(hyps))
+    undecided = np.zeros(len(hyps))
+    walk = {"linear_walk": np.zeros((3, len(hyps))), "half_split": np.zeros((3, len(hyps)))}
+    worst = 0.0
+    live = [h for h in range(len(hyps)) if priors[h] > 0]
+    total_runs, done = len(live) * trials, 0
+    for h in live:
+        for _ in range(trials):
+            world = int(rng.integers(table.samples.shape[2]))  # one vehicle: one set of part values
+            draws = {t: draw_reading(table, h, t, rng, sample=world) for t in range(n_t)}
+            read = walk_readings(draws)
+            conclusion, n_tests, minutes = run_planner(start, read)
+            named = table.hypothesis_index(_named(conclusion))
+            acc[h] += named == h or named in group_of.get(h, ())
+            tests_used[h] += n_tests
+            minutes_used[h] += minutes
+            undecided[h] += conclusion.diagnosis is None
+            worst = max(worst, minutes)
+            for name, strategy in (("linear_walk", linear_walk), ("half_split", half_split)):
+                result = strategy(table, path, read)
+                guess = _walk_named(model, log_prior, result, draws)
+                walk[name][0, h] += guess == h or guess in group_of.get(h, ())
+                walk[name][1, h] += len(result.tests)
+                walk[name][2, h] += result.minutes
+            done += 1
+            if progress is not None:
+                progress(done, total_runs)
+
+    def weighted(values: np.ndarray) -> float:
+        return float(priors @ (values / trials))
+
+    nf_planner, nf_optimum = noise_free(loaded, table, threshold, settings, optimum_seconds)
+    per = tuple({"hypothesis": hyps[h].id, "prior": float(priors[h]), "accuracy": acc[h] / trials,
+                 "mean_tests": tests_used[h] / trials, "mean_minutes": minutes_used[h] / trials}
+                for h in live)
+    return SimulationResult(
+        ruleset=loaded.ruleset.id, hypotheses=len(hyps), trials=trials, seed=seed,
+        threshold=start.threshold,
+        accuracy=weighted(acc), mean_tests=weighted(tests_used), mean_minutes=weighted(minutes_used),
+        worst_minutes=worst,
+        linear_walk=Figures(*(weighted(walk["linear_walk"][i]) for i in range(3))),
+        half_split=Figures(*(weighted(walk["half_split"][i]) for i in range(3))),
+        planner_noise_free_minutes=nf_planner, optimal_noise_free_minutes=nf_optimum,
+        ambiguity_groups=tuple(tuple(hyps[h].id for h in g) for g in groups),
+        undecided=weighted(undecided), per_hypothesis=per,
+    )
+
+
+def noise_free(loaded: LoadedRuleset, table: PredictionTable, threshold: float | None = None,
+               settings: PlannerSettings | None = None,
+               optimum_seconds: float = OPTIMUM_SECONDS) -> tuple[float, float | None]:
+    """(planner's expected minutes, optimal expected minutes) on the noise-free problem."""
+    nf = build_model(table, noise_free=True)
+    outcomes = noise_free_outcomes(nf)
+    priors = np.array([h.prior for h in table.hypotheses], dtype=float)
+    priors = priors / priors.sum()
+    base = settings or PlannerSettings()
+    # the same stopping rule as the optimum: stop at the threshold or when no test splits
+    exact = PlannerSettings(base.threshold, 1e-9, base.recommend_boost, base.state_change_minutes,
+                            base.ambiguity_tolerance)
+    start = Diagnosis.start(loaded, table, Context(), threshold, widen_to_pairs=False, settings=exact, model=nf)
+    expected = 0.0
+    for h in range(len(table.hypotheses)):
+        if priors[h] <= 0:
+            continue
+
+        def read(t: int, h: int = h) -> Reading:
+            o = nf.tests[t]
+            k = int(outcomes[h, t])
+            if o.is_observation:
+                return Reading(o.label(k), outcome=o.label(k))
+            centre = o.centre(k)
+            if math.isinf(centre):
+                return Reading(o.label(k), overload=True)
+            return Reading(o.label(k), value=centre)
+
+        _, _, minutes = run_planner(start, read)
+        expected += priors[h] * minutes
+    costs = [t.cost_minutes for t in table.tests]
+    optimum = optimal_cost(outcomes, priors, costs, start.threshold, time_limit=optimum_seconds)
+    return expected, optimum

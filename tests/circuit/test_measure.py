@@ -1,0 +1,168 @@
+"""Each measurement kind through the meter model: loading, floating nodes, ohms, jacks, fuse drops."""
+
+from __future__ import annotations
+
+from types import SimpleNamespace
+from typing import Any
+
+import numpy as np
+import pytest
+
+from assistant.circuit.measure import measurement_for
+from assistant.circuit.netlist import CircuitModel
+from assistant.errors import CircuitError
+from assistant.meter import default_meter
+from assistant.predict import PredictionTable, compute_table
+
+from conftest import build_ruleset, loaded_of
+
+LAMP = [
+    {"id": "b", "type": "battery", "nodes": ["P", "GND"], "emf": "12.6 V"},
+    {"id": "f", "type": "fuse", "nodes": ["P", "F"], "rating": "10 A"},
+    {"id": "sw", "type": "switch", "nodes": ["F", "S"]},
+    {"id": "w", "type": "wire", "nodes": ["S", "A"], "length": "2 m", "section": "1 mm2"},
+    {"id": "lamp", "type": "lamp", "nodes": ["A", "B"], "rating": "21 W",
+     "faults": {"high_resistance": 1}},
+    {"id": "wg", "type": "wire", "nodes": ["B", "G"], "length": "1 m", "section": "1 mm2"},
+    {"id": "g", "type": "ground", "nodes": ["G", "GND"]},
+    {"id": "stub", "type": "wire", "nodes": ["F", "X"], "length": "0.3 m", "section": "0.5 mm2"},
+    {"id": "sleep", "type": "load", "nodes": ["F", "GND"], "current": "30 mA"},
+]
+STATES = {"off": {"label": "switch off"}, "on": {"label": "switch on", "closes": ["sw"]}}
+
+
+def table(tests: list[dict[str, Any]], components: list[dict[str, Any]] | None = None, *, nominal: bool = True,
+          pairs: tuple[tuple[str, str], ...] = (), samples: int = 1) -> PredictionTable:
+    ruleset = build_ruleset(components or LAMP, tests, states=STATES)
+    return compute_table(loaded_of(ruleset), default_meter(), samples=samples, pairs=pairs, nominal=nominal)
+
+
+def shown(tab: PredictionTable, hyp: str, test: str) -> float:
+    return float(tab.samples[tab.hypothesis_index(hyp), tab.test_index(test), 0])
+
+
+def test_floating_node_reads_what_a_10_megohm_input_reads() -> None:
+    # the stub wire open leaves X touching nothing: a 10 MOhm input closes no loop and reads 0 V
+    tab = table([{"id": "v_x", "kind": "voltage", "at": "X", "state": "on"}])
+    assert shown(tab, "none", "v_x") == pytest.approx(12.6, abs=0.05)
+    assert shown(tab, "stub.open", "v_x") == 0.0
+
+
+def test_drop_inside_a_floating_island_is_the_difference_inside_it() -> None:
+    # feed and ground wire both open: the lamp floats with no source in its island; across it 0 V
+    tab = table([{"id": "drop_lamp", "kind": "drop", "between": ["A", "B"], "state": "on"},
+                 {"id": "v_a", "kind": "voltage", "at": "A", "state": "on"}], pairs=(("w.open", "wg.open"),))
+    assert shown(tab, "none", "drop_lamp") > 11.5
+    assert shown(tab, "w.open+wg.open", "drop_lamp") == 0.0
+    assert shown(tab, "w.open+wg.open", "v_a") == 0.0
+    # the ground side open alone: the lamp's ground terminal sits at the feed voltage
+    assert shown(tab, "wg.open", "v_a") == pytest.approx(shown(tab, "none", "v_a") + 0.0, abs=0.5)
+
+
+def test_voltmeter_loading_on_a_high_impedance_divider() -> None:
+    # Floyd, Electric Circuit Fundamentals, loading effect of a voltmeter (method from memory):
+    # 5 V over 1 M + 1 M reads 2.5 V unloaded; Thevenin 0.5 M, so a 10 M input reads
+    # 2.5 * 10 / 10.5 = 2.381 V [D], shown as 2.38 on the 20 V range
+    comps = [{"id": "ecu", "type": "module_supply", "nodes": ["REF", "GND"], "voltage": "5 V",
+              "internal_resistance": "1e-6 ohm", "tolerance": 0},
+             {"id": "r1", "type": "resistor", "nodes": ["REF", "T"], "resistance": "1 Mohm", "tolerance": 0},
+             {"id": "r2", "type": "resistor", "nodes": ["T", "GND"], "resistance": "1 Mohm", "tolerance": 0}]
+    tab = table([{"id": "v_t", "kind": "voltage", "at": "T", "state": "on"}], comps)
+    assert shown(tab, "none", "v_t") == pytest.approx(2.38, abs=1e-9)
+
+
+def test_resistance_of_a_lamp_on_the_bench_excludes_its_holder() -> None:
+    # cold P21W: 6.857 / 12 = 0.571 ohm, plus 0.2 ohm of leads = 0.771, shown 0.8 on the 200 ohm
+    # range (0.1 ohm steps) [D]; the holder's high resistance is not on the bench
+    tab = table([{"id": "r_lamp", "kind": "resistance", "between": ["A", "B"], "only": ["lamp"]}])
+    assert shown(tab, "none", "r_lamp") == pytest.approx(0.8, abs=1e-9)
+    assert shown(tab, "lamp.high_resistance", "r_lamp") == pytest.approx(0.8, abs=1e-9)
+    assert shown(tab, "lamp.filament_open", "r_lamp") == np.inf
+
+
+def test_resistance_in_circuit_de_energised_with_isolation() -> None:
+    # ground side of the lamp to ground, in place: 1 m of 1 mm2 (17.2 mOhm) + the 2 mOhm eyelet
+    # + 0.2 ohm of leads = 0.22 ohm, shown 0.2 [D]; a corroded eyelet adds its ohms; pulling the
+    # ground point (isolate) leaves no path: OL
+    tests = [{"id": "r_gnd", "kind": "resistance", "between": ["B", "GND"]},
+             {"id": "r_gnd_pulled", "kind": "resistance", "between": ["B", "GND"], "isolate": ["g"]}]
+    tab = table(tests)
+    assert shown(tab, "none", "r_gnd") == pytest.approx(0.2, abs=1e-9)
+    assert shown(tab, "g.high_resistance", "r_gnd") == pytest.approx(0.2 + 5.0, abs=0.1)  # nominal: sqrt(0.5 x 50) = 5 ohm
+    # with the eyelet out, the lamp's ground side could reach ground only back through the lamp
+    # and its feed, and the switch is open in the first state: no path, OL
+    assert shown(tab, "none", "r_gnd_pulled") == np.inf
+
+
+def test_current_on_the_10a_jack_includes_its_burden() -> None:
+    # P21W on 12.6 V through the fused 10 A jack (0.03 ohm burden): a little under 12.6 / 6.86
+    tab = table([{"id": "i_lamp", "kind": "current", "component": "lamp", "state": "on"},
+                 {"id": "i_lamp_clamp", "kind": "current", "component": "lamp", "state": "on", "jack": "clamp"}])
+    jack, clamp = shown(tab, "none", "i_lamp"), shown(tab, "none", "i_lamp_clamp")
+    assert 1.7 < jack < 1.85
+    assert jack < clamp  # the clamp adds no burden
+    assert shown(tab, "lamp.filament_open", "i_lamp") == 0.0
+
+
+def test_small_current_goes_to_the_ma_jack_and_reads_its_burden() -> None:
+    # the sleeping module draws 30 mA at 12 V (R = 400 ohm): on the 200 mA range (1 ohm burden)
+    # 12.6 / 401 A = 31.4 mA [D]
+    tab = table([{"id": "i_sleep", "kind": "current", "component": "sleep", "state": "off"}])
+    assert tab.tests[0].jack == "auto"
+    assert shown(tab, "none", "i_sleep") == pytest.approx(0.0314, abs=1e-4)
+    assert tab.resolution[0, 0, 0] == pytest.approx(1e-4)  # 0.1 mA steps of the 200 mA range
+
+
+def test_a_short_past_the_jack_rating_reads_ol_or_blows_the_fuse() -> None:
+    tab = table([{"id": "i_lamp", "kind": "current", "component": "lamp", "state": "on"},
+                 {"id": "v_f", "kind": "voltage", "at": "F", "state": "off"}],
+                [dict(c, faults={"short_to_ground": 1}) if c["id"] == "w" else c for c in LAMP])
+    # the chafed feed blows the 10 A fuse (13.5 A), which stays blown with the switch off too
+    assert shown(tab, "w.short_to_ground", "i_lamp") == 0.0
+    assert shown(tab, "w.short_to_ground", "v_f") == 0.0
+    assert shown(tab, "none", "v_f") > 12.0
+
+
+def test_fuse_drop_reads_millivolts_of_the_current_through_it() -> None:
+    # 10 A blade fuse: 80 mV at rating -> 8 mOhm; the sleep load (400 ohm) draws 12.6 / 400 =
+    # 31.5 mA, dropping 0.252 mV, shown 0.3 mV on the 200 mV range [D]; blown, the gap shows
+    # the battery through the load
+    tab = table([{"id": "fd", "kind": "fuse_drop", "fuse": "f", "state": "off"}])
+    assert shown(tab, "none", "fd") == pytest.approx(0.0003, abs=1e-12)
+    assert shown(tab, "f.blown", "fd") == pytest.approx(12.6, abs=0.05)
+
+
+def test_observation_rows_by_fault_then_component_then_default() -> None:
+    tests = [{"id": "look", "kind": "observation", "question": "Fuse blown?",
+              "likelihoods": {"f.blown": {"yes": 0.9, "no": 0.1}, "lamp": {"yes": 0.3, "no": 0.7},
+                              "default": {"yes": 0.02, "no": 0.98}}}]
+    tab = table(tests, pairs=(("lamp.filament_open", "f.blown"),))
+    rows = tab.observations[0]
+    assert np.isnan(tab.samples[:, 0, :]).all()
+    assert rows[tab.hypothesis_index("f.blown")] == pytest.approx([0.9, 0.1])
+    assert rows[tab.hypothesis_index("lamp.filament_open")] == pytest.approx([0.3, 0.7])
+    assert rows[tab.hypothesis_index("none")] == pytest.approx([0.02, 0.98])
+    # a pair takes a fault-id row before a component row
+    assert rows[tab.hypothesis_index("lamp.filament_open+f.blown")] == pytest.approx([0.9, 0.1])
+
+
+def test_a_test_without_a_state_runs_in_the_first_state() -> None:
+    tab = table([{"id": "v_s", "kind": "voltage", "at": "S"}])
+    assert tab.tests[0].state == "off"
+    assert shown(tab, "none", "v_s") == 0.0  # the switch is open in 'off'
+
+
+def test_an_unknown_test_kind_raises() -> None:
+    model = CircuitModel(build_ruleset(LAMP, states=STATES))
+    with pytest.raises(CircuitError, match="ultrasound"):
+        measurement_for(SimpleNamespace(id="t", kind="ultrasound", state=None), model)
+
+
+def test_readings_are_quantised_to_the_range_in_use() -> None:
+    tab = table([{"id": "v_a", "kind": "voltage", "at": "A", "state": "on"}], nominal=False, samples=32)
+    values = tab.samples[:, 0, :]
+    steps = values / tab.resolution[:, 0, :]
+    assert np.allclose(steps, np.round(steps), atol=1e-6)
+    # sigma is the ±(0.5 % + 2 counts) bound over sqrt(3)
+    expected = (0.005 * np.abs(values) + 2 * tab.resolution[:, 0, :]) / np.sqrt(3)
+    assert np.allclose(tab.sigma[:, 0, :], expected)

@@ -1,0 +1,106 @@
+"""The bundled rulesets: every one lints clean, the five families are covered, each carries its
+own regression cases and they pass, and docs/rulesets.md lists them as they are."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import pytest
+
+from assistant.cases import run_cases
+from assistant.predict import predict
+from assistant.ruleset import fault_list, lint_ruleset, load_ruleset, ruleset_files
+
+ROOT = Path(__file__).resolve().parents[2]
+RULESETS = ROOT / "rulesets"
+DOC = ROOT / "docs" / "rulesets.md"
+FILES = sorted(ruleset_files([RULESETS]))
+FAMILIES = {"lamp", "motor", "sensor_feed", "starter", "key_off_draw"}  # issue 7's five families
+
+
+def _id(path: Path) -> str:
+    return str(path.relative_to(RULESETS))
+
+
+def test_six_rulesets_across_the_five_families() -> None:
+    assert len(FILES) >= 6
+    families = {load_ruleset(p).ruleset.family for p in FILES}
+    assert FAMILIES <= families, f"missing families: {sorted(FAMILIES - families)}"
+    # each lives in the folder of its family
+    for path in FILES:
+        assert path.parent.name == load_ruleset(path).ruleset.family, _id(path)
+
+
+@pytest.mark.parametrize("path", FILES, ids=_id)
+def test_lints_clean(path: Path) -> None:
+    assert [str(p) for p in lint_ruleset(load_ruleset(path))] == []
+
+
+@pytest.mark.parametrize("path", FILES, ids=_id)
+def test_drawn_for_our_invented_van_with_cautions_and_six_cases(path: Path) -> None:
+    ruleset = load_ruleset(path).ruleset
+    assert any("Larkspur" in v.model for v in ruleset.applies_to)
+    assert ruleset.cautions, "every bundled ruleset carries its cautions"
+    assert any("maker's procedures" in c for c in ruleset.cautions)
+    assert len(ruleset.cases) >= 6
+    # a case for at least six different faults: the cases are not one fault six times
+    assert len({c.expect for c in ruleset.cases}) >= 6
+
+
+@pytest.mark.parametrize("path", FILES, ids=_id)
+def test_every_parameter_line_names_its_source(path: Path) -> None:
+    """Numeric electrical parameters carry a comment naming where they come from."""
+    keys = ("emf", "internal_resistance", "rating", "resistance", "running_current", "pull_in",
+            "voltage", "current", "awake_current", "ratio", "supply_resistance")
+    pattern = re.compile(rf"^\s*({'|'.join(keys)}):\s*[-0-9.]")
+    tags = ("FACTS.md", "common practice", "from memory", "demo data", "ECE R", "IACS", "Regulation")
+    missing = [f"{_id(path)}:{n}: {line.strip()}"
+               for n, line in enumerate(path.read_text(encoding="utf-8").splitlines(), 1)
+               if pattern.match(line) and not any(t in line for t in tags)]
+    assert missing == []
+
+
+def test_high_current_tests_ask_for_a_clamp() -> None:
+    """Above the meter's fused 10 A jack a current test must use a clamp (common practice)."""
+    blower = load_ruleset(RULESETS / "motor" / "blower.yaml").ruleset
+    starter = load_ruleset(RULESETS / "starter" / "starter.yaml").ruleset
+    assert {t.id: t.jack for t in blower.tests if t.kind == "current"}["i_motor_high"] == "clamp"
+    assert {t.id: t.jack for t in starter.tests if t.kind == "current"}["i_crank"] == "clamp"
+
+
+def test_key_off_draw_waits_and_keeps_the_doors_shut() -> None:
+    ruleset = load_ruleset(RULESETS / "key_off_draw" / "key_off_draw.yaml").ruleset
+    total = next(t for t in ruleset.tests if t.id == "i_total")
+    text = f"{total.instructions} {ruleset.states['asleep'].instructions}".lower()
+    assert "wait" in text and "do not open the doors" in text
+    assert "jumper" in text  # the meter goes in without breaking the circuit
+    kinds = {t.kind for t in ruleset.tests}
+    assert "fuse_drop" in kinds
+    assert any(t.kind == "current" and t.isolate for t in ruleset.tests)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("path", FILES, ids=_id)
+def test_cases_pass_against_the_circuit_engine(path: Path, tmp_path: Path,
+                                               monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
+    loaded = load_ruleset(path)
+    results = run_cases(loaded, predict(loaded, cache=False))
+    failures = [f"{r.case_id}: {'; '.join(r.differences)}" for r in results if not r.passed]
+    assert len(results) >= 6
+    assert failures == []
+
+
+def test_docs_table_matches_the_rulesets() -> None:
+    """docs/rulesets.md lists every bundled ruleset with its real fault, test and case counts."""
+    rows = {}
+    for line in DOC.read_text(encoding="utf-8").splitlines():
+        m = re.match(r"^\| `([^`]+\.yaml)` \| (\w+) \| [^|]+ \| (\d+) \| (\d+) \| (\d+) \|$", line)
+        if m:
+            rows[m.group(1)] = (m.group(2), int(m.group(3)), int(m.group(4)), int(m.group(5)))
+    actual = {}
+    for path in FILES:
+        rs = load_ruleset(path).ruleset
+        actual[_id(path)] = (rs.family, len(fault_list(rs)), len(rs.tests), len(rs.cases))
+    assert rows == actual

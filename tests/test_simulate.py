@@ -1,0 +1,87 @@
+"""Simulated diagnoses: drawn readings, the figures, the JSON shape, the command line."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+import assistant.predict
+from assistant.cli import main
+from assistant.simulate import draw_reading, noise_free, simulate
+from synthetic_tables import TINY_LAMP, tiny_lamp
+
+LOADED, TABLE = tiny_lamp()
+
+
+def test_drawn_readings_follow_the_prediction_and_the_meter() -> None:
+    rng = np.random.default_rng(5)
+    none, t = TABLE.hypothesis_index("none"), TABLE.test_index("v_feed")
+    values = np.array([draw_reading(TABLE, none, t, rng).value for _ in range(2000)])
+    assert values.mean() == pytest.approx(float(TABLE.samples[none, t].mean()), abs=0.01)
+    # shown at the 10 mV resolution of the range
+    np.testing.assert_allclose(values * 100, np.round(values * 100), atol=1e-6)
+    # the spread adds the meter's error to the circuit's: a rectangular bound of sqrt(3) sigma
+    assert values.std() > float(TABLE.samples[none, t].std())
+
+
+def test_drawn_overloads_and_observations() -> None:
+    rng = np.random.default_rng(6)
+    lamp = TABLE.hypothesis_index("lamp.filament_open")
+    r = draw_reading(TABLE, lamp, TABLE.test_index("r_lamp"), rng)
+    assert r.overload and r.text == "OL"
+    blown = TABLE.hypothesis_index("fuse.blown")
+    answers = [draw_reading(TABLE, blown, TABLE.test_index("look_fuse"), rng).outcome for _ in range(1000)]
+    assert answers.count("yes") / 1000 == pytest.approx(0.9, abs=0.04)
+
+
+REQUIRED = {"ruleset", "hypotheses", "trials", "accuracy", "mean_tests", "mean_minutes", "worst_minutes",
+            "linear_walk", "half_split", "noise_free", "ambiguity_groups"}
+
+
+def test_simulation_figures_and_shape() -> None:
+    result = simulate(LOADED, TABLE, trials=6, seed=2)
+    data = result.to_json()
+    assert REQUIRED <= set(data)
+    for key in ("linear_walk", "half_split"):
+        assert set(data[key]) == {"accuracy", "mean_tests", "mean_minutes"}
+    assert set(data["noise_free"]) == {"planner_mean_minutes", "optimal_mean_minutes"}
+    assert data["hypotheses"] == len(TABLE.hypotheses) and data["trials"] == 6
+    assert 0.9 <= data["accuracy"] <= 1.0
+    assert data["worst_minutes"] >= data["mean_minutes"]
+    # the optimum is a lower bound of any strategy on the same noise-free problem
+    assert data["noise_free"]["optimal_mean_minutes"] <= data["noise_free"]["planner_mean_minutes"] + 1e-9
+    assert ["fuse.blown", "feed.short_to_ground"] in data["ambiguity_groups"]
+    json.dumps(data)  # plain JSON
+
+
+def test_same_seed_same_figures() -> None:
+    a = simulate(LOADED, TABLE, trials=3, seed=11).to_json()
+    b = simulate(LOADED, TABLE, trials=3, seed=11).to_json()
+    assert a == b
+
+
+def test_noise_free_planner_against_the_optimum_on_the_tiny_lamp() -> None:
+    planner, optimum = noise_free(LOADED, TABLE)
+    assert optimum is not None
+    assert optimum <= planner <= 1.25 * optimum
+
+
+def test_cli_simulate_json(monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]) -> None:
+    monkeypatch.setattr(assistant.predict, "predict", lambda loaded, **kw: TABLE, raising=False)
+    assert main(["simulate", str(TINY_LAMP), "--trials", "2", "--json"]) == 0
+    out, err = capsys.readouterr()
+    assert REQUIRED <= set(json.loads(out))
+    assert err == ""  # no progress bar when the output is not a terminal
+
+
+def test_cli_simulate_table_and_bad_trials(monkeypatch: pytest.MonkeyPatch,
+                                           capsys: pytest.CaptureFixture[str]) -> None:
+    monkeypatch.setattr(assistant.predict, "predict", lambda loaded, **kw: TABLE, raising=False)
+    assert main(["simulate", str(TINY_LAMP), "--trials", "2"]) == 0
+    out, _ = capsys.readouterr()
+    assert "linear walk" in out and "noise-free" in out
+    assert main(["simulate", str(TINY_LAMP), "--trials", "0"]) == 1
+    _, err = capsys.readouterr()
+    assert err.count("\n") == 1 and "--trials" in err
