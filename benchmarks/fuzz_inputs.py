@@ -22,6 +22,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
+from tests import fuzz_targets as ft  # noqa: E402
 from tests import fuzzing  # noqa: E402
 
 
@@ -29,6 +30,10 @@ def _targets(folder: Path) -> dict[str, tuple]:
     return {
         "ruleset": (fuzzing.mutated_ruleset(), lambda case: fuzzing.check_ruleset_bytes(case[1], folder, case[2]),
                     lambda case: case[0]),
+        "reading": (ft.typed_reading(), ft.check_reading, lambda case: case[0].kind),
+        "answers": (ft.mutated_answers(), lambda case: ft.check_answers(case[1], folder), lambda case: case[0]),
+        "history": (ft.mutated_history(), lambda case: ft.check_history(case[1], folder), lambda case: case[0]),
+        "export": (ft.tampered_export(), ft.check_export, lambda case: case[0]),
     }
 
 

@@ -24,7 +24,7 @@ from typing import Any
 from hypothesis import HealthCheck, Phase, given, settings
 from hypothesis import strategies as st
 
-from assistant.errors import Problem, RulesetError
+from assistant.errors import LocatedError, Problem, RulesetError
 from assistant.ruleset import fault_list, load_ruleset
 from assistant.ruleset.lint import lint_ruleset
 
@@ -46,7 +46,7 @@ HOSTILE_SCALARS = (
     "18 AWG", "0000 AWG", "99 AWG", "1/0 AWG", "5/0 AWG", "1.5 mm2", "1.5 mm3", "1.5", "3 min", "0 min",
     "-3 min", "1e9 min", "20 degC", "-300 degC", "500 K", "'<script>alert(1)</script>'",
     "\"'; DROP TABLE sessions; --\"", "'a\" [label=\"x\"]; b -> c'", "$(rm -rf /)", "`id`",
-    "../../../etc/passwd", "{{ 7 * 7 }}",
+    "../../../etc/passwd", "{{ 7 * 7 }}", "12 V)", "12 (V", "12 V**", "12 __import__",
 )
 
 # Tags that would build objects or unusual kinds in a permissive loader.
@@ -101,9 +101,12 @@ def mutated_ruleset(draw: st.DrawFn) -> tuple[str, bytes, str | None]:
     The third member, when set, is a fragment the refusal must contain: a hostile YAML tag
     must be refused as a tag, whatever else is wrong with the value it sits on.
     """
+    return mutate_text(draw, BUNDLED_TEXT[draw(st.sampled_from(BUNDLED))])
+
+
+def mutate_text(draw: st.DrawFn, text: str, extra_values: tuple[str, ...] = ()) -> tuple[str, bytes, str | None]:
+    """One kind of damage done to a YAML text: (kind, bytes, expected refusal or None)."""
     expect: str | None = None
-    path = draw(st.sampled_from(BUNDLED))
-    text = BUNDLED_TEXT[path]
     lines = text.split("\n")
     kind = draw(st.sampled_from((
         "delete_lines", "swap_values", "hostile_value", "random_bytes", "deep_nesting", "yaml_tag",
@@ -126,7 +129,7 @@ def mutated_ruleset(draw: st.DrawFn) -> tuple[str, bytes, str | None]:
         m = _KEY_VALUE.match(lines[i])
         assert m
         if kind == "hostile_value":
-            new = draw(st.sampled_from(HOSTILE_SCALARS))
+            new = draw(st.sampled_from(HOSTILE_SCALARS + extra_values))
         elif kind == "yaml_tag":
             new = draw(st.sampled_from(HOSTILE_TAGS))
             if new.startswith("!!timestamp"):
@@ -183,13 +186,14 @@ def mutated_ruleset(draw: st.DrawFn) -> tuple[str, bytes, str | None]:
 # --------------------------------------------------------------------------- contracts
 
 
-def assert_one_line_located(err: Exception, file: str) -> None:
+def assert_one_line_located(err: Exception, file: str, error_type: type[LocatedError] = RulesetError) -> None:
     """A refusal the CLI can print as one line, pointing into the file."""
     text = str(err)
     assert text, "empty error message"
     assert "\n" not in text and "\r" not in text, f"message over several lines: {text!r}"
     assert len(text) < 2000, f"message of {len(text)} characters"
-    assert isinstance(err, RulesetError)
+    assert isinstance(err, error_type)
+    assert isinstance(err, LocatedError)
     for problem in err.problems:
         assert isinstance(problem, Problem)
         assert problem.file == file, f"problem without its file: {problem}"

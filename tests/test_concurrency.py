@@ -19,7 +19,7 @@ from assistant.export import check_record
 from assistant.store import open_store
 
 WRITER = Path(__file__).resolve().parent / "children" / "store_writer.py"
-SESSIONS, STEPS = 4, 15
+SESSIONS, STEPS = 3, 10
 
 
 def _run_writers(url: str, writers: int) -> list[str]:

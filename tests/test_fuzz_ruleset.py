@@ -21,7 +21,7 @@ from assistant.ruleset.load import MAX_DEPTH, MAX_FILE_BYTES, MAX_VALUES
 from tests.conftest import STOP_LAMPS
 from tests.fuzzing import BUNDLED, assert_one_line_located, check_ruleset_bytes, mutated_ruleset
 
-FUZZ = settings(max_examples=50, deadline=None, suppress_health_check=[HealthCheck.too_slow,
+FUZZ = settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow,
                                                                         HealthCheck.data_too_large])
 
 
@@ -85,6 +85,9 @@ def test_arbitrary_bytes_are_refused_with_a_place(tmp_path_factory: pytest.TempP
         ("format: 1\nsystem_voltage: " + "9" * 5000 + "\n", "a number with thousands of digits"),
         # Finding 8: ruamel's messages for a bad character came on two lines.
         ("a: \x07\n", "unacceptable character"),
+        # Finding 9: pint's parser raised tokenize.TokenError on an unbalanced bracket in a
+        # unit; it passed through pydantic as a crash, not a located error.
+        ("format: 1\nsystem_voltage: 12 V)\n", "has a unit ohmtrail does not know"),
     ],
 )
 def test_fuzz_findings_are_refused_with_one_located_line(tmp_path: Path, yaml_text: str, fragment: str) -> None:
@@ -92,7 +95,7 @@ def test_fuzz_findings_are_refused_with_one_located_line(tmp_path: Path, yaml_te
     path.write_bytes(yaml_text.encode("utf-8", "surrogatepass"))
     with pytest.raises(RulesetError) as info:
         load_ruleset(path)
-    assert fragment in str(info.value)
+    assert any(fragment in str(problem) for problem in info.value.problems), str(info.value)
     assert_one_line_located(info.value, str(path))
 
 
