@@ -84,8 +84,15 @@ class Engine:
 
 
 def engine_for_record(record: SessionRecord, meter: MeterProfile | None = None) -> Engine:
-    """The engine a stored session ran on: its ruleset file and overlays, unchanged, predicted anew."""
+    """The engine a stored session ran on: its ruleset file and overlays, unchanged, predicted anew.
+
+    The meter is the one given, else the profile file the session was started with.
+    """
+    from assistant.meter import load_meter_profile
     from assistant.ruleset.load import load_ruleset
+
+    if meter is None and record.meter_profile != "default":
+        meter = load_meter_profile(record.meter_profile)
 
     if not record.ruleset_path:
         raise SessionError(f"session {record.id} does not say which ruleset file it used")
