@@ -321,9 +321,8 @@ class Session:
                     + f"; leading suspect {lead} {p:.0%}")
         self._fired(source)
         conflict = getattr(self.diagnosis, "conflict", None)
-        if conflict is not None:
-            source.tell(f"no fault of this ruleset explains every reading so far: {conflict}; "
-                        "re-measure the reading in doubt or undo it")
+        if conflict is not None:  # its message names the reading to re-measure
+            source.tell(f"{conflict.message} (type remeasure {conflict.test_id}, or undo)")
 
     def _undo(self, source: ReadingSource) -> None:
         try:
