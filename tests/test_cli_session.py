@@ -137,6 +137,16 @@ def test_resume_carries_on_and_keeps_what_was_there(capsys: pytest.CaptureFixtur
     assert after.status == "closed" and after.diagnosis == "w_left_gnd.high_resistance"
 
 
+def test_a_conflicting_reading_is_pointed_out(capsys: pytest.CaptureFixture[str], db: str, tmp_path: Path) -> None:
+    # All lamps bright, yet 0.2 V after the fuse: no single fault explains both.
+    path = tmp_path / "conflict.yaml"
+    path.write_text("complaint: left_dim\nreadings:\n  look_lamps: all_bright\n  v_fuse: 0.2 V\n", encoding="utf-8")
+    code, out, _ = run(capsys, "diagnose", str(STOP_LAMPS), "--answers", str(path), "--db", db)
+    assert code == 0
+    assert any("no fault explains every reading" in line and line.endswith("(type remeasure v_fuse, or undo)")
+               for line in out.splitlines())
+
+
 def test_resume_uses_the_sessions_meter_profile(capsys: pytest.CaptureFixture[str], db: str,
                                                 tmp_path: Path) -> None:
     from assistant.meter import load_meter_profile
