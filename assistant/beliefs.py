@@ -64,10 +64,14 @@ class TestOutcomes:
     columns: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))  # bin -> column
     bins: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))  # column -> bin
     log2probs: np.ndarray = field(init=False, repr=False)  # log2 of probs (-inf where 0)
+    row_negentropy: np.ndarray = field(init=False, repr=False)  # sum_k P log2 P per hypothesis
 
     def __post_init__(self) -> None:
-        with np.errstate(divide="ignore"):
-            object.__setattr__(self, "log2probs", np.log2(self.probs))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            logs = np.log2(self.probs)
+            object.__setattr__(self, "log2probs", logs)
+            object.__setattr__(self, "row_negentropy",
+                               np.where(self.probs > 0, self.probs * logs, 0.0).sum(axis=1))
 
     @property
     def is_observation(self) -> bool:
@@ -251,6 +255,22 @@ def _bandwidth(x: np.ndarray) -> float:
     return 0.9 * spread * x.size ** -0.2
 
 
+def _bandwidths(u: np.ndarray, finite: np.ndarray) -> np.ndarray:
+    """Silverman's bandwidth of each row's finite values (0 for rows with fewer than two)."""
+    count = finite.sum(axis=1)
+    bw = np.zeros(u.shape[0])
+    rows = count >= 2
+    if rows.any():
+        x = u[rows]
+        sd = np.nanstd(x, axis=1, ddof=1)
+        full = bool(finite[rows].all())  # np.percentile is far faster than nanpercentile
+        q75, q25 = (np.percentile if full else np.nanpercentile)(x, [75, 25], axis=1)
+        iqr = (q75 - q25) / 1.34
+        spread = np.where(iqr > 0, np.minimum(sd, iqr), sd)
+        bw[rows] = 0.9 * spread * count[rows] ** -0.2
+    return bw
+
+
 def _spread_samples(acc: np.ndarray, uv: np.ndarray, sv: np.ndarray, rows: np.ndarray,
                     offsets: np.ndarray, du: float, first: int, n_bins: int, width: int) -> None:
     """Add each sample's display distribution (normal on the u scale, integrated over the bins)
@@ -261,8 +281,9 @@ def _spread_samples(acc: np.ndarray, uv: np.ndarray, sv: np.ndarray, rows: np.nd
     spread = sv > 0
     safe = np.where(spread, sv, 1.0)[:, None]
     mass = ndtr((upper - uv[:, None]) / safe) - ndtr((lower - uv[:, None]) / safe)
-    point = ((lower <= uv[:, None]) & (uv[:, None] < upper)).astype(float)
-    mass = np.where(spread[:, None], mass, point)
+    if not spread.all():  # exact values (noise-free tables): all the mass in their own bin
+        point = ((lower <= uv[:, None]) & (uv[:, None] < upper)).astype(float)
+        mass = np.where(spread[:, None], mass, point)
     mass = np.where((bins >= 0) & (bins < n_bins), mass, 0.0)
     totals = mass.sum(axis=1, keepdims=True)
     mass = mass / np.where(totals > 0, totals, 1.0)
@@ -300,7 +321,7 @@ def _meter_outcomes(table: PredictionTable, t: int, info: TestInfo, eps: float,
         centre = None
         # each sample's spread on the u scale: the meter's uncertainty (delta method) and the
         # kernel bandwidth of its hypothesis' samples
-        bw = np.array([_bandwidth(u[h][finite[h]]) for h in range(n_h)])
+        bw = _bandwidths(u, finite)
         sig_u = sig / np.sqrt(np.where(finite, x, 0.0) ** 2 + scale ** 2)
         spread = np.sqrt(sig_u ** 2 + bw[:, None] ** 2)
         lo = float((u - _WINDOW_SIGMAS * spread)[finite].min()) if finite.any() else 0.0

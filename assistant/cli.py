@@ -12,6 +12,7 @@ import logging
 import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from assistant import __version__
 from assistant.errors import LocatedError, OhmtrailError, OutputError
@@ -32,6 +33,11 @@ from assistant.ruleset.load import LoadedRuleset, load_ruleset
 from assistant.scaffold import FAMILIES, write_scaffold
 from assistant.ruleset.model import Ruleset
 from assistant.trail import render_trail
+
+if TYPE_CHECKING:
+    from assistant.meter import MeterProfile
+    from assistant.session import Engine
+    from assistant.sources import ReadingSource
 
 log = logging.getLogger("ohmtrail.cli")
 
@@ -150,7 +156,7 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
 
     if args.trials < 1:
         raise OhmtrailError(f"--trials must be at least 1, not {args.trials}")
-    loaded = _load_checked(args.ruleset)
+    loaded = check_ruleset(load_with_overlays(args))
     table = predict_module.predict(loaded, seed=args.seed)
     show_bar = not args.json and sys.stdout.isatty() and sys.stderr.isatty()
     result = simulate(loaded, table, trials=args.trials, seed=args.seed, threshold=args.threshold,
@@ -176,7 +182,8 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
 def _load_session(args: argparse.Namespace) -> SessionRecord:
     from assistant.store import open_store
 
-    return open_store(args.db).load(args.session_id)
+    store = open_store(args.db)
+    return store.load(store.find(args.session_id))  # an id or a unique prefix of one
 
 
 def _emit(data: bytes, output: str | None, default_name: str) -> None:
@@ -229,7 +236,7 @@ def _cmd_verify(args: argparse.Namespace) -> int:
 def _add_session_command(sub: argparse._SubParsersAction[argparse.ArgumentParser], name: str,
                          help_text: str, description: str) -> argparse.ArgumentParser:
     p = sub.add_parser(name, help=help_text, description=description)
-    p.add_argument("session_id", metavar="ID", help="the session id")
+    p.add_argument("session_id", metavar="ID", help="the session id (or a unique start of it)")
     p.add_argument("-o", "--output", metavar="FILE",
                    help="where to write ('-' for standard output; default: a file named after "
                    "the session in the current folder)")
@@ -313,6 +320,8 @@ def _cmd_check(args: argparse.Namespace) -> int:
             print(f"      asked: {', '.join(r.asked) or 'nothing'}")
     for path in report.without_cases:
         print(f"note: {path} has no cases")
+    if report.files == 0:
+        raise OhmtrailError(f"no ruleset files (*.yaml) under {', '.join(args.paths)}")
     failed = sum(not r.passed for r in report.results)
     rulesets = report.files
     line = (f"{len(report.results)} case{'s' if len(report.results) != 1 else ''} in {rulesets} "
@@ -334,6 +343,135 @@ def _cmd_coverage(args: argparse.Namespace) -> int:
     else:
         print(coverage_text(result))
     return 0
+
+
+# --------------------------------------------------------------------------- diagnosis sessions
+
+
+def _meter(args: argparse.Namespace) -> tuple[MeterProfile | None, str]:
+    from assistant.meter import load_meter_profile
+
+    path = getattr(args, "meter", None)
+    return (load_meter_profile(path), str(path)) if path else (None, "default")
+
+
+def _source(args: argparse.Namespace, engine: Engine, *, narrate: bool) -> ReadingSource:
+    """The reading source the options ask for: an answers file, the simulator, or the prompt."""
+    from assistant.sources import AnswersFileSource, Narrated, SimulatedSource, load_answers
+
+    loaded, table = engine.loaded, engine.table
+    source: ReadingSource
+    if args.answers:
+        source = AnswersFileSource(load_answers(args.answers, loaded.ruleset, table.tests))
+    elif args.simulate:
+        intake = load_answers(args.context, loaded.ruleset, table.tests).intake if args.context else None
+        source = SimulatedSource(table, args.simulate, args.seed, intake)
+    else:
+        from assistant.prompt import PromptSource
+
+        if not (sys.stdin.isatty() and sys.stdout.isatty()):
+            raise OhmtrailError("the interactive prompt needs a terminal; give --answers FILE or --simulate FAULT_ID")
+        return PromptSource(loaded.ruleset)
+    return Narrated(source, print) if narrate else source
+
+
+def _finish(record: SessionRecord, store_where: str, as_json: bool) -> int:
+    from assistant.session import summary_json
+
+    if as_json:
+        print(json.dumps(summary_json(record), indent=2))
+        return 0
+    ended = {"open": "left open", "concluded": "concluded (repair not yet recorded)", "closed": "closed"}
+    print(f"\nSession {record.id} {ended.get(record.status, record.status)}: {len(record.steps)} steps "
+          f"saved in {store_where}")
+    if record.status != "closed":
+        print(f"  carry on with: ohmtrail resume {record.id}")
+    print(f"  export, trail, report: ohmtrail export|trail|report {record.id}")
+    return 0
+
+
+def _cmd_diagnose(args: argparse.Namespace) -> int:
+    from assistant.session import Engine, Session
+    from assistant.store import open_store
+
+    if args.context and not args.simulate:
+        raise OhmtrailError("--context gives the vehicle and complaint for --simulate; an answers file holds its own")
+    if args.ruleset:
+        loaded = check_ruleset(load_with_overlays(args))
+    elif args.answers or args.simulate:
+        raise OhmtrailError("--answers and --simulate need a RULESET")
+    else:
+        from assistant.catalogue import catalogue
+        from assistant.prompt import choose_ruleset
+
+        args.ruleset = choose_ruleset(catalogue()).path
+        loaded = check_ruleset(load_with_overlays(args))
+    meter, meter_name = _meter(args)
+    store = open_store(args.db)  # before the slow part: a store that cannot be opened stops here
+    with store:
+        engine = Engine.build(loaded, meter)
+        source = _source(args, engine, narrate=not args.json)
+        session = Session.begin(store, engine, source, meter_name=meter_name, threshold=args.threshold,
+                                session_id=args.id)
+        record = session.run(source)
+        return _finish(record, store.where, args.json)
+
+
+def _cmd_resume(args: argparse.Namespace) -> int:
+    from assistant.session import Session, engine_for_record
+    from assistant.store import open_store
+
+    meter, _ = _meter(args)
+    with open_store(args.db) as store:
+        session = Session.resume(store, args.session_id, lambda record: engine_for_record(record, meter))
+        args.context = None
+        source = _source(args, session.engine, narrate=not args.json)
+        lines = session.recap()
+        if not args.json:
+            print(f"Resuming session {session.id} ({len(lines)} entries so far):")
+            for line in lines:
+                print(f"  {line}")
+        record = session.run(source)
+        return _finish(record, store.where, args.json)
+
+
+def _cmd_sessions(args: argparse.Namespace) -> int:
+    from assistant.session import session_json
+    from assistant.store import open_store
+
+    with open_store(args.db) as store:
+        summaries = store.list()
+        if args.json:
+            print(json.dumps([session_json(store.load(s.id)) for s in summaries], indent=2))
+            return 0
+        if not summaries:
+            print(f"no sessions in {store.where}")
+            return 0
+        rows = [("ID", "STARTED", "STATUS", "STEPS", "RULESET", "VEHICLE", "DIAGNOSIS")]
+        for s in summaries:
+            found = f"{s.diagnosis} {s.probability:.0%}" if s.diagnosis and s.probability is not None else "-"
+            rows.append((s.id, s.started[:16].replace("T", " "), s.status, str(s.steps), s.ruleset_id,
+                         s.vehicle or "-", found))
+        widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+        for r in rows:
+            print("  ".join(cell.ljust(w) for cell, w in zip(r, widths)).rstrip())
+    return 0
+
+
+def _add_reading_source_options(p: argparse.ArgumentParser) -> None:
+    group = p.add_mutually_exclusive_group()
+    group.add_argument("--answers", metavar="FILE",
+                       help="take the readings from a YAML or JSON file (complaint, vehicle, readings by "
+                       "test id); a test the file lacks is skipped")
+    group.add_argument("--simulate", metavar="FAULT_ID",
+                       help="let the circuit model answer as the meter would with this fault (or 'none')")
+    p.add_argument("--seed", type=int, default=0, metavar="S", help="random seed of --simulate (default 0)")
+    p.add_argument("--json", action="store_true",
+                   help="print one JSON object at the end (session, diagnosis, probability, steps) instead "
+                   "of the conversation")
+    p.add_argument("--db", metavar="URL", help="session store: sqlite:///FILE or postgresql://... (default: "
+                   "$OHMTRAIL_DB or sessions.db in the user data folder)")
+    p.add_argument("--meter", metavar="FILE", help="meter profile YAML (default: a 2000-count handheld)")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -392,6 +530,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--threshold", type=float, default=None, metavar="P",
                    help="stop when a fault reaches P (default: the ruleset's threshold)")
     p.add_argument("--json", action="store_true", help="print the figures as JSON")
+    add_overlay_options(p)
     p.set_defaults(handler=_cmd_simulate)
 
     p = _add_session_command(
@@ -479,6 +618,37 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("name", metavar="NAME", help="the new ruleset's id (and file name)")
     p.add_argument("-o", "--output", metavar="FILE", help="where to write it (default: NAME.yaml)")
     p.set_defaults(handler=_cmd_new)
+
+    p = sub.add_parser("diagnose", help="run a diagnosis: one measurement at a time, every answer saved",
+                       description="Diagnose a circuit: ohmtrail asks for one measurement at a time (where, "
+                       "how to set the meter, the cautions, the healthy range), takes the reading as typed, "
+                       "and stops when one fault is certain enough. Every answer is saved before the next "
+                       "question; `ohmtrail resume ID` carries on. Without RULESET, pick one from the "
+                       "bundled and configured rulesets. At the prompt, type help for the commands.")
+    p.add_argument("ruleset", metavar="RULESET", nargs="?", help="a ruleset file")
+    _add_reading_source_options(p)
+    p.add_argument("--context", metavar="FILE",
+                   help="with --simulate: the vehicle, technician, complaint and fault codes, from a file in "
+                   "the answers format (no readings)")
+    p.add_argument("--threshold", type=float, metavar="P",
+                   help="stop when a fault reaches this probability (default: the ruleset's)")
+    p.add_argument("--id", metavar="ID", help="the new session's id (default: time and a random suffix)")
+    add_overlay_options(p)
+    p.set_defaults(handler=_cmd_diagnose)
+
+    p = sub.add_parser("resume", help="carry on with a session that was left open",
+                       description="Carry on with a session where it stopped: the answers so far are shown "
+                       "and kept, and the next question is asked. The ruleset file must be unchanged.")
+    p.add_argument("session_id", metavar="ID", help="the session id (a unique prefix will do)")
+    _add_reading_source_options(p)
+    p.set_defaults(handler=_cmd_resume)
+
+    p = sub.add_parser("sessions", help="list the stored sessions",
+                       description="List the sessions in the store: id, started, status, steps, ruleset, "
+                       "vehicle and diagnosis. With --json, every session with its steps.")
+    p.add_argument("--json", action="store_true", help="print JSON: every session with its steps")
+    p.add_argument("--db", metavar="URL", help="session store URL (default: $OHMTRAIL_DB or the user data folder)")
+    p.set_defaults(handler=_cmd_sessions)
 
     p = sub.add_parser("graph", help="draw a ruleset's circuit as modelled",
                        description="Draw the circuit of a ruleset with Graphviz: test points (nodes) with "

@@ -29,7 +29,6 @@ from typing import Any
 
 import numpy as np
 
-from assistant.errors import OhmtrailError
 from assistant.diagnosis import Conclusion, Context, Diagnosis, evidence_model
 from assistant.planner import AMBIGUITY_TOLERANCE, total_variation
 from assistant.planner import ambiguity_groups as engine_groups
@@ -37,6 +36,7 @@ from assistant.overlay import apply_priors
 from assistant.predict import PredictionTable
 from assistant.ruleset.load import LoadedRuleset
 from assistant.ruleset.model import Ruleset
+from assistant.simulate import draw_reading
 
 log = logging.getLogger("ohmtrail.coverage")
 
@@ -153,11 +153,7 @@ def isolation_minutes(loaded: LoadedRuleset, table: PredictionTable, hypothesis:
                       context: Context | None = None) -> tuple[float, float, set[str]]:
     """Mean minutes to conclude under one hypothesis, the fraction concluded right, and the tests asked."""
     if draw is None:
-        try:
-            from assistant.simulate import draw_reading as draw
-        except ImportError as exc:  # the simulator is not merged yet
-            raise OhmtrailError("expected minutes need the simulator (assistant.simulate); "
-                                "use --runs 0 for the rest of the report") from exc
+        draw = draw_reading
     index = {t.id: i for i, t in enumerate(table.tests)}
     target = table.hypotheses[hypothesis].id
     minutes: list[float] = []

@@ -9,14 +9,19 @@ import math
 import re
 from datetime import datetime, timezone
 
-from assistant.record import Step
+from assistant.record import SessionRecord, Step
 from assistant.ruleset.defaults import fault_list
 from assistant.ruleset.model import Ruleset
 
 _UNIT_SYMBOL = {"ohm": "Ω", "ohms": "Ω", "Ω": "Ω", "v": "V", "a": "A"}
 # (factor, prefix) from large to small; the first whose scaled value is at least 1 is used.
 _PREFIXES = ((1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "µ"))
-_CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f-\x9f\u2028\u2029\ud800-\udfff\ufffe\uffff]")
+# Control characters, line and paragraph separators, surrogates, non-characters, and the
+# bidirectional embedding, override and isolate controls (U+202A-U+202E, U+2066-U+2069): in a
+# claim report an override could make a reading or a name display in another order than it
+# was recorded. The marks U+200E and U+200F stay; right-to-left text needs no more.
+_CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f-\x9f\u2028\u2029\u202a-\u202e\u2066-\u2069"
+                      r"\ud800-\udfff\ufffe\uffff]")
 
 
 def unit_symbol(unit: str | None) -> str:
@@ -29,7 +34,9 @@ def unit_symbol(unit: str | None) -> str:
 def _prefix_for(magnitude: float, unit: str) -> tuple[float, str]:
     if not unit or magnitude == 0 or not math.isfinite(magnitude):
         return 1.0, ""
-    allowed = _PREFIXES if unit == "Ω" else tuple(p for p in _PREFIXES if p[0] <= 1.0)
+    # meters show ohms as 0.9 Ω, not 900 mΩ; volts and amperes below one in milli and micro
+    allowed = (tuple(p for p in _PREFIXES if p[0] >= 1.0) if unit == "Ω"
+               else tuple(p for p in _PREFIXES if p[0] <= 1.0))
     for factor, prefix in allowed:
         if magnitude >= factor:
             return factor, prefix
@@ -115,9 +122,14 @@ def clean_text(text: str) -> str:
     return _CONTROL.sub("", text.replace("\r\n", "\n").replace("\r", "\n"))
 
 
-def format_suspects(top: tuple[tuple[str, float], ...], count: int = 3) -> str:
-    """The leading suspects as one line: ``"a 93.0 % · b 5.0 %"``."""
-    return " · ".join(f"{clean_text(h)} {format_probability(p)}" for h, p in top[:count])
+def complaint_text(record: SessionRecord) -> str:
+    """The complaint in words: the start step's text with the complaint id, or what was given."""
+    given = clean_text(record.complaint or "")
+    start = record.steps[0] if record.steps and record.steps[0].kind == "start" else None
+    words = clean_text(start.note or "") if start else ""
+    if words and given and words != given:
+        return f"{words} ({given})"
+    return words or given
 
 
 def ruleset_names(ruleset: Ruleset) -> dict[str, str]:

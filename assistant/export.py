@@ -196,8 +196,17 @@ class VerifyResult:
 
 def _fail(message: str, place: str | None, *, step_index: int | None = None,
           step_count: int = 0) -> VerifyResult:
-    return VerifyResult(False, message, place=place, step_index=step_index,
-                        step_count=step_count)
+    return VerifyResult(False, _one_line(message), place=None if place is None else _one_line(place),
+                        step_index=step_index, step_count=step_count)
+
+
+def _one_line(text: str, limit: int = 400) -> str:
+    """A message that quotes the document's own keys and values, kept to one printable line.
+
+    (Found by fuzzing: a member name holding a newline made ``ohmtrail verify`` print two lines.)
+    """
+    shown = "".join(c if c.isprintable() else repr(c)[1:-1] for c in text)
+    return shown if len(shown) <= limit else shown[: limit - 3] + "..."
 
 
 def _step_label(raw: Mapping[str, Any], position: int) -> str:
@@ -256,7 +265,12 @@ def verify_export(data: Any) -> VerifyResult:
             return _fail(f"{_step_label(raw, position)} has index {raw.get('index')!r} at "
                          f"position {position}: a step was removed, added or reordered",
                          place, step_index=position)
-        expected = _step_payload_digest(previous, raw)
+        try:
+            expected = _step_payload_digest(previous, raw)
+        except IntegrityError:  # NaN or infinity: JSON's reader takes them, the seal cannot
+            return _fail(f"{_step_label(raw, position)} holds a number that is not plain JSON "
+                         "(NaN or infinity): it was changed after it was recorded",
+                         place, step_index=position)
         if raw.get("digest") != expected:
             return _fail(f"{_step_label(raw, position)} does not match its digest: it was "
                          "changed after it was recorded, or a step before it was",
@@ -274,7 +288,11 @@ def verify_export(data: Any) -> VerifyResult:
     stored_fields = integrity.get("fields")
     if not isinstance(stored_fields, Mapping):
         return _fail("the field digests are missing", "integrity.fields")
-    fields = _field_digests(data)
+    try:
+        fields = _field_digests(data)
+    except IntegrityError:
+        return _fail("the session header holds a number that is not plain JSON (NaN or infinity): "
+                     "it was changed after it was sealed", "session")
     for path, digest in fields.items():
         if path not in stored_fields:
             return _fail(f"{path} is not among the sealed fields: it was added", path)

@@ -130,7 +130,11 @@ def _repair(row: list[str], columns: dict[str, int], name: str, number: int,
 
     def fail(message: str, key: str, value: str | None = None) -> HistoryError:
         col = columns.get(key)
-        return HistoryError(message, file=name, line=number, column=None if col is None else col + 1,
+        # A quoted cell may hold line breaks or a megabyte; the message stays one short line
+        # (found by fuzzing).
+        shown = "".join(c if c.isprintable() else repr(c)[1:-1] for c in message)
+        shown = shown if len(shown) <= 300 else shown[:297] + "..."
+        return HistoryError(shown, file=name, line=number, column=None if col is None else col + 1,
                             field=key, value=value)
 
     raw_date = cell("date")

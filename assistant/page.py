@@ -10,10 +10,11 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass, fields, is_dataclass
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 from assistant.cautions import cautions_for, session_cautions
+from assistant.display import format_quantity, format_range
 from assistant.reading import Reading
 
 if TYPE_CHECKING:
@@ -23,26 +24,6 @@ if TYPE_CHECKING:
     from assistant.ruleset.load import LoadedRuleset
     from assistant.ruleset.model import Ruleset
     from assistant.sources import Intake
-
-_SYMBOL = {"V": "V", "ohm": "Ω", "A": "A"}
-_PREFIXES = ((1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "µ"))
-
-
-def format_quantity(value: float | None, unit: str) -> str:
-    """A value for people: ``12.65 V``, ``118 mV``, ``6.5 kΩ``, ``OL``; four significant figures."""
-    if value is None:
-        return "-"
-    if math.isinf(value):
-        return "OL"
-    symbol = _SYMBOL.get(unit, unit)
-    if value == 0:
-        return f"0 {symbol}".strip()
-    magnitude = abs(value)
-    for scale, prefix in _PREFIXES:
-        if magnitude >= scale * 0.99995 or scale == _PREFIXES[-1][0]:
-            return f"{value / scale:.4g} {prefix}{symbol}".strip()
-    return f"{value:g} {symbol}"  # not reached: the last prefix takes everything smaller
-
 
 @dataclass(frozen=True)
 class TestPage:
@@ -72,7 +53,7 @@ class TestPage:
 class Question:
     """What the session puts to its reading source: the proposal, its test and its page."""
 
-    proposal: Proposal
+    proposal: Proposal | None  # None for the verification test at the stop
     test: TestInfo
     page: TestPage
     ranking: tuple[tuple[str, float], ...]
@@ -163,17 +144,21 @@ class PageMaker:
                         ranking=tuple(diagnosis.ranking()), why=why_text(proposal),
                         answered=answered, test_ids=tuple(self._specs))
 
+    def test_question(self, test_id: str, ranking: tuple[tuple[str, float], ...] = (),
+                      extra_cautions: Iterable[str] = ()) -> Question:
+        """A question for one test that no proposal asked for (the verification test)."""
+        return Question(proposal=None, test=self._infos[test_id], page=self.page(test_id, extra_cautions),
+                        ranking=ranking, why="the test that proves the repair", answered=0,
+                        test_ids=tuple(self._specs))
+
     def closing(self, conclusion: Conclusion, diagnosis: Diagnosis) -> ClosingPage:
         """The page at the stop."""
         label = self.hypothesis_label(conclusion.diagnosis) if conclusion.diagnosis else "no single fault"
         first = conclusion.repairs[0] if conclusion.repairs else None
         verification = None
         if conclusion.verification_test and conclusion.verification_test in self._specs:
-            test_id = conclusion.verification_test
-            page = self.page(test_id, tuple(getattr(diagnosis, "cautions", ())))
-            verification = Question(proposal=None, test=self._infos[test_id], page=page,  # type: ignore[arg-type]
-                                    ranking=tuple(conclusion.ranking), why="proves the repair",
-                                    answered=0, test_ids=tuple(self._specs))
+            verification = self.test_question(conclusion.verification_test, tuple(conclusion.ranking),
+                                              tuple(getattr(diagnosis, "cautions", ())))
         repaired: tuple[str, ...] = ()
         if first is not None:
             fault = getattr(first, "fault_id", None)
@@ -255,50 +240,37 @@ class PageMaker:
             yield line
 
     def _healthy(self, spec: Any, info: TestInfo) -> tuple[float | None, float | None, str | None]:
+        """The healthy range: the ruleset's own, else the 5th-95th percentile under "none"."""
         if info.kind == "observation":
             return None, None, None
         if spec.healthy is not None:
             low, high = spec.healthy
-            return low, high, f"{format_quantity(low, info.unit)} to {format_quantity(high, info.unit)}"
-        row = _none_row(self.summary, info.id)
+            return low, high, format_range(low, high, info.unit)
+        row = self.summary.get("none", {}).get(info.id)
         if row is None:
             return None, None, None
         low, high = _number(row.get("low")), _number(row.get("high"))
         if low is None and high is None:
             return None, None, "OL"
-        if low is not None and high is None:
-            return low, None, f"{format_quantity(low, info.unit)} or more (OL possible)"
-        if low is not None and high is not None and format_quantity(low, info.unit) == format_quantity(high, info.unit):
+        if high is None:
+            return low, None, f"{format_range(low, None, info.unit)}, or OL"
+        if low is not None and format_quantity(low, info.unit) == format_quantity(high, info.unit):
             return low, high, f"about {format_quantity(low, info.unit)}"
-        return low, high, f"{format_quantity(low, info.unit)} to {format_quantity(high, info.unit)}"
+        return low, high, format_range(low, high, info.unit)
 
     def _setup(self, info: TestInfo, low: float | None, high: float | None) -> tuple[str, ...]:
+        """Function and range, where each lead goes, and any note, from the meter profile."""
         if info.kind == "observation" or self.meter is None:
             return ()
         from assistant.meter import meter_setup
 
-        expected = None
-        if low is not None and high is not None:
-            expected = (low + high) / 2
-        elif low is not None:
-            expected = low
+        expected = high if high is not None else low  # the range must hold the largest healthy value
         setup = meter_setup(info, self.meter, expected)
-        return tuple(_setup_lines(setup))
-
-
-def _none_row(summary: Any, test_id: str) -> dict[str, Any] | None:
-    """The healthy ("none") summary of one test, whichever way round the summary is keyed."""
-    for key in ("hypotheses", "by_hypothesis"):
-        if isinstance(summary, dict) and key in summary:
-            summary = summary[key]
-    if isinstance(summary, dict):
-        node = summary.get("none")
-        if isinstance(node, dict) and test_id in node:
-            return node[test_id]
-        node = summary.get(test_id)
-        if isinstance(node, dict) and "none" in node:
-            return node["none"]
-    return None
+        lines = [f"{setup.function}, range {setup.range}", f"red lead: {setup.red_lead}",
+                 f"black lead: {setup.black_lead}"]
+        if setup.note:
+            lines.append(setup.note)
+        return tuple(lines)
 
 
 def _number(value: Any) -> float | None:
@@ -307,35 +279,13 @@ def _number(value: Any) -> float | None:
     return None
 
 
-def _setup_lines(setup: Any) -> Iterable[str]:
-    if hasattr(setup, "lines") and callable(setup.lines):
-        yield from setup.lines()
-        return
-    items: Iterable[tuple[str, Any]]
-    if is_dataclass(setup):
-        items = ((f.name, getattr(setup, f.name)) for f in fields(setup))
-    elif hasattr(setup, "model_dump"):
-        items = setup.model_dump().items()
-    else:
-        yield str(setup)
-        return
-    for name, value in items:
-        if value not in (None, "", ()):
-            yield f"{name.replace('_', ' ')}: {value}"
-
-
 def why_text(proposal: Any) -> str:
-    """The numbers behind a proposal, as text."""
+    """The numbers behind a proposal, as text: gain, cost, the suspects it separates, each outcome."""
     why = getattr(proposal, "why", None)
-    head = (f"{proposal.test_id}: expected information {proposal.gain_bits:.2f} bits for "
-            f"{proposal.cost_minutes:g} min ({proposal.gain_bits / max(proposal.cost_minutes, 1e-9):.3f} bits/min)")
-    if why is None:
-        return head
-    if hasattr(why, "lines") and callable(why.lines):
-        body = "\n".join(why.lines())
-    else:
-        body = str(why)
-    return f"{head}\n{body}"
+    if why is not None and hasattr(why, "text"):
+        return str(why.text())
+    return (f"{proposal.test_id}: {proposal.gain_bits:.2f} bits for {proposal.cost_minutes:g} min"
+            + (f"\n{why}" if why else ""))
 
 
 def hypothesis_label(ruleset: Ruleset, hypothesis_id: str) -> str:
@@ -366,7 +316,8 @@ def render_page(question: Question, heading: str | None = None) -> str:
     if page.state:
         lines.append(f"Set: {page.state}")
     if page.setup:
-        lines.append("Meter: " + "; ".join(page.setup))
+        lines.append(f"Meter: {page.setup[0]}")
+        lines.extend(f"  {line}" for line in page.setup[1:])
     if page.healthy:
         lines.append(f"Healthy: {page.healthy}")
     lines.append(f"Cost: about {page.cost_minutes:g} min")
@@ -412,7 +363,7 @@ def render_closing(page: ClosingPage) -> str:
     if c.repairs:
         lines.append("Repairs, most worth doing first:")
         for r in c.repairs[:5]:
-            lines.append(f"  - {r.action} ({getattr(r, 'fault_id', '')}, {r.probability:.1%}, {r.minutes:g} min)")
+            lines.append(f"  - {r.action} [{r.fault_id}] ({r.probability:.1%}, {r.minutes:g} min)")
     if page.verification is not None:
         v = page.verification.page
         lines.append(f"Verify with: {v.title} [{v.test_id}], healthy {v.healthy or 'as before'}")

@@ -18,6 +18,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from weakref import WeakKeyDictionary
 
 import numpy as np
 
@@ -113,15 +114,14 @@ def _alive(p: np.ndarray) -> np.ndarray:
 
 def expected_gain(p: np.ndarray, outcomes: TestOutcomes, alive: np.ndarray | None = None) -> float:
     """Mutual information (bits) between the hypothesis (distribution ``p``) and the outcome."""
-    idx = _alive(p) if alive is None else alive
-    q = p[idx] / p[idx].sum()
-    probs = outcomes.probs[idx]
-    logs = outcomes.log2probs[idx]
-    pk = q @ probs
-    with np.errstate(divide="ignore", invalid="ignore"):  # 0 log 0 = 0 in noise-free models
-        log_pk = np.log2(pk)
-        terms = np.where(probs > 0, probs * (logs - log_pk[None, :]), 0.0)
-    return max(0.0, float(q @ terms.sum(axis=1)))
+    # I = sum_h q_h sum_k P_hk log P_hk - sum_k P_k log P_k, with the first sum kept per row
+    q = np.where(p > ALIVE, p, 0.0) if alive is None else np.zeros_like(p)
+    if alive is not None:
+        q[alive] = p[alive]
+    q = q / q.sum()
+    pk = q @ outcomes.probs
+    pk = pk[pk > 0]
+    return max(0.0, float(q @ outcomes.row_negentropy - pk @ np.log2(pk)))
 
 
 def gains(p: np.ndarray, model: EvidenceModel, tests: Sequence[int]) -> np.ndarray:
@@ -170,13 +170,30 @@ def total_variation(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return 0.5 * np.abs(a - b).sum(axis=-1)
 
 
+_FARTHEST: WeakKeyDictionary[EvidenceModel, dict[int, np.ndarray]] = WeakKeyDictionary()
+
+
+def _farthest(model: EvidenceModel, h: int) -> np.ndarray:
+    """Largest total-variation distance over all tests between ``h`` and each hypothesis (cached)."""
+    cache = _FARTHEST.setdefault(model, {})
+    found = cache.get(h)
+    if found is None:
+        found = np.zeros(model.n_hypotheses)
+        for outcomes in model.tests:
+            np.maximum(found, total_variation(outcomes.model, outcomes.model[h][None, :]), out=found)
+        cache[h] = found
+    return found
+
+
 def indistinguishable(model: EvidenceModel, h: int, among: Sequence[int] | np.ndarray,
                       tests: Sequence[int] | None = None,
                       tolerance: float = AMBIGUITY_TOLERANCE) -> np.ndarray:
     """Those of ``among`` that no test in ``tests`` (default: all) tells apart from ``h``."""
     idx = np.asarray(among, dtype=int)
+    if tests is None:
+        return idx[_farthest(model, h)[idx] < tolerance]
     same = np.ones(idx.size, dtype=bool)
-    for t in range(len(model.tests)) if tests is None else tests:
+    for t in tests:
         rows = model.tests[t].model
         same &= total_variation(rows[idx], rows[h][None, :]) < tolerance
     return idx[same]

@@ -99,7 +99,7 @@ class PredictionTable:
 ENGINE_VERSION = "1"  # bump when the table's meaning changes; the engine's own source is hashed as well
 log = logging.getLogger("ohmtrail.predict")
 QUANTILES = (0.05, 0.5, 0.95)
-GROUP_NODE_VARIANTS = 2e6  # variants × nodes solved at once; bounds memory on large harnesses
+GROUP_NODE_VARIANTS = 2e7  # variants × nodes × right-hand sides at once (160 MB); bounds memory
 
 
 def hypotheses_of(ruleset: Ruleset, pairs: Sequence[tuple[str, str]] = ()
@@ -178,7 +178,7 @@ def predict(
 def compute_table(loaded: LoadedRuleset, meter: MeterProfile, *, samples: int = 64, seed: int = 0,
                   pairs: Sequence[tuple[str, str]] = (), nominal: bool = False) -> PredictionTable:
     """The prediction table, computed (no cache)."""
-    from assistant.circuit.measure import Env, measurement_for, observation_rows
+    from assistant.circuit.measure import Env, ResistanceMeasurement, measurement_for, observation_rows
     from assistant.circuit.netlist import CircuitModel
     from assistant.circuit.operating import operate_states
 
@@ -191,19 +191,26 @@ def compute_table(loaded: LoadedRuleset, meter: MeterProfile, *, samples: int = 
         for pair in m.probes():
             if pair not in probes.setdefault(m.state, []):
                 probes[m.state].append(pair)
+    ohms_probes: dict[tuple[str, tuple[str, ...], tuple[str, ...]], list[tuple[str, str]]] = {}
+    for m in meter_tests.values():
+        if isinstance(m, ResistanceMeasurement):
+            pair = (m.points()[0], m.points()[1])
+            if pair not in ohms_probes.setdefault(m.setup(), []):
+                ohms_probes[m.setup()].append(pair)
     H, T, S = len(hyps), len(ruleset.tests), samples
     shape = (H, T, S)
     out_samples, out_sigma, out_res = np.full(shape, np.nan), np.full(shape, np.nan), np.full(shape, np.nan)
     # large circuits go in groups of hypotheses, each led by "none" (the jack choice and the
     # lead placement of current tests are taken from the no-fault circuit)
-    per_group = max(1, int(GROUP_NODE_VARIANTS // (S * len(model.nodes))))
+    columns = 1 + max((len(v) for v in probes.values()), default=0)
+    per_group = max(1, int(GROUP_NODE_VARIANTS // (S * len(model.nodes) * columns)))
     for lo in range(1, max(H, 2), per_group):
         rows = [0] + list(range(lo, min(H, lo + per_group)))
         group = [members[h] for h in rows]
         batch = model.batch(group, samples, seed=seed, nominal=nominal)
         points = operate_states(model, batch, probes)
         blown = {f.id: np.logical_or.reduce([p.blown[f.id] for p in points.values()]) for f in model.fuses}
-        env = Env(model, batch, meter, points, blown, slice(0, samples))
+        env = Env(model, batch, meter, points, blown, slice(0, samples), ohms_probes)
         for t, test in enumerate(ruleset.tests):
             if test.kind == "observation":
                 continue

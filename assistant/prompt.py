@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import logging
 import re
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING, Any
 
 from prompt_toolkit import PromptSession, print_formatted_text
@@ -26,6 +26,7 @@ if TYPE_CHECKING:
     from prompt_toolkit.input import Input
     from prompt_toolkit.output import Output
 
+    from assistant.catalogue import Entry
     from assistant.page import ClosingPage
     from assistant.ruleset.model import Ruleset
 
@@ -253,3 +254,32 @@ def _model_year(text: str) -> int:
         raise ValueError(f"'{text}' is not a model year; type e.g. 2021")
     return int(text)
 
+
+
+def choose_ruleset(entries: Sequence[Entry], *, input: Input | None = None, output: Output | None = None,
+                   write: Callable[[str], None] | None = None) -> Entry:
+    """Let the technician pick a ruleset from the catalogue, listed by circuit family."""
+    if not entries:
+        raise SessionError("no rulesets found; give a RULESET file, or set OHMTRAIL_RULESETS to a folder of them")
+    say = write or (lambda text: print_formatted_text(text, output=output))
+    family = None
+    for i, entry in enumerate(entries, 1):
+        if entry.family != family:
+            family = entry.family
+            say(family)
+        say(f"  {i}. {entry.title} [{entry.id} {entry.version}]{' (shop)' if entry.origin != 'bundled' else ''}")
+    ids = [e.id for e in entries]
+    session: PromptSession[str] = PromptSession(input=input, output=output)
+    while True:
+        try:
+            text = session.prompt("Ruleset (number or id): ", completer=WordCompleter(ids)).strip()
+        except KeyboardInterrupt:
+            say("Ctrl-C: nothing started yet; Ctrl-D leaves.")
+            continue
+        except EOFError as exc:
+            raise SessionError("no ruleset chosen; nothing was started") from exc
+        if text.isdigit() and 1 <= int(text) <= len(entries):
+            return entries[int(text) - 1]
+        if text in ids:
+            return entries[ids.index(text)]
+        say(f"not taken: '{text}' is not one of 1-{len(entries)} or a ruleset id")

@@ -90,7 +90,7 @@ def parse_reading(text: str, test: TestInfo) -> Reading:
     else:
         value = float(number)
     if not math.isfinite(value):
-        raise ReadingError(_hint(f"'{typed}' is not a finite number", test))
+        raise ReadingError(_hint(f"{_shown(typed)} is not a finite number", test))
     # 118 mV is 0.118 V, not pint's 0.11800000000000001: keep the digits that were typed.
     return Reading(text=typed, value=float(f"{value:.12g}"))
 
@@ -104,12 +104,12 @@ def _split(typed: str, test: TestInfo) -> tuple[str, str]:
         number = f"{whole}.{fraction}"
         if mark in _LETTER_UNITS:
             if rest:
-                raise ReadingError(_hint(f"'{typed}' mixes two ways of writing a unit", test))
+                raise ReadingError(_hint(f"{_shown(typed)} mixes two ways of writing a unit", test))
             return number, _LETTER_UNITS[mark]
         return number, _prefixed(_PREFIXES[mark], rest, typed, test)
     match = _VALUE.match(compact)
     if not match:
-        raise ReadingError(_hint(f"'{typed}' is not a reading", test))
+        raise ReadingError(_hint(f"{_shown(typed)} is not a reading", test))
     number, rest = match.group(1), match.group(2).strip()
     if not rest:
         return number, ""
@@ -141,13 +141,24 @@ def _outcome(typed: str, test: TestInfo) -> Reading:
         return Reading(text=found[0], outcome=found[0])
     choices = ", ".join(outcomes)
     if found:
-        raise ReadingError(f"'{typed}' could be any of {', '.join(found)}; answer one of: {choices}")
-    raise ReadingError(f"'{typed}' is not an answer to this question; answer one of: {choices}")
+        raise ReadingError(f"{_shown(typed)} could be any of {', '.join(found)}; answer one of: {choices}")
+    raise ReadingError(f"{_shown(typed)} is not an answer to this question; answer one of: {choices}")
 
 
 def _wrong_unit(typed: str, unit: str, test: TestInfo) -> str:
     dim = _DIMENSIONS[test.unit]
-    return _hint(f"'{typed}' is not a {dim.name}", test)
+    return _hint(f"{_shown(typed)} is not a {dim.name}", test)
+
+
+def _shown(typed: str, limit: int = 40) -> str:
+    """What was typed, quoted for a one-line message: unprintable characters escaped, long text cut.
+
+    (Found by fuzzing: a pasted kilobyte came back whole in the message, and an escape
+    sequence typed at the prompt would have reached the terminal in it.)
+    """
+    text = "".join(c if c.isprintable() else f"\\x{ord(c):02x}" if ord(c) < 256 else f"\\u{ord(c):04x}"
+                   for c in typed[: limit + 1])
+    return f"'{text[:limit]}...'" if len(typed) > limit or len(text) > limit else f"'{text}'"
 
 
 def _hint(reason: str, test: TestInfo) -> str:

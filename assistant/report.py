@@ -21,14 +21,15 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from assistant import __version__
+from assistant import cautions as caution_texts
 from assistant.display import (
     clean_text,
+    complaint_text,
     format_probability,
     format_range,
     format_reading,
     format_stamp,
     format_stamp_short,
-    format_suspects,
     ruleset_names,
 )
 from assistant.errors import IntegrityError, OhmtrailError, OutputError
@@ -41,20 +42,6 @@ from assistant.trail import Drawing, render_trail
 log = logging.getLogger("ohmtrail.report")
 
 FORMATS = ("pdf", "html")
-
-# The cautions every claim report carries, after the ruleset's own (common practice).
-GENERAL_CAUTIONS = (
-    "Measure current only in series, on the meter's fused current jack, and move the red lead "
-    "back to the voltage jack afterwards. Never crank the engine or switch on a large load "
-    "through the current jack: use a DC clamp.",
-    "Never measure resistance on a powered circuit; isolate the part first.",
-    "Do not probe airbag or other pyrotechnic circuits with an ohmmeter.",
-    "Disable fuel and ignition before cranking tests, and keep clear of moving parts.",
-    "Hybrid and electric vehicles' high-voltage systems (orange cabling) are out of scope: they "
-    "need training, a CAT III 1000 V rated meter and leads, and insulated gloves.",
-    "Follow the vehicle maker's procedures, local codes and licensed practice; where they "
-    "differ from ohmtrail, they win. ohmtrail advises; the technician decides.",
-)
 
 _KIND_WORDS = {"start": "complaint taken", "reading": "reading", "skip": "skipped",
                "undo": "answer taken back", "remeasure": "re-measure", "note": "note",
@@ -91,6 +78,7 @@ class ReportContent:
     diagnosis_probability: str
     stopped_because: str
     alternatives: tuple[tuple[str, str], ...]
+    cannot_tell_apart: tuple[str, ...]  # faults no test of the ruleset tells from the diagnosis
     repair: str
     verification: str
     steps: tuple[StepRow, ...]
@@ -116,17 +104,30 @@ def _vehicle_facts(record: SessionRecord) -> list[tuple[str, str]]:
 
 def _step_row(step: Step, names: Mapping[str, str], undone: set[int]) -> StepRow:
     what = _KIND_WORDS.get(step.kind, step.kind)
-    if step.test_id:
+    if step.test_id and step.kind == "conclusion":  # the test that is to prove the repair
+        what = f"{what}; verify with: {_name(step.test_id, names)}"
+    elif step.test_id:
         what = f"{what}: {_name(step.test_id, names)}"
     if step.kind == "undo" and step.refers_to is not None:
         what = f"{what}: step {step.refers_to}"
     if step.rules_fired:
         what = f"{what}: {', '.join(clean_text(r) for r in step.rules_fired)}"
-    leading = format_suspects(tuple((_name(h, names), p) for h, p in step.top), 2)
+    leading = "\n".join(f"{_name(h, names)} {format_probability(p)}" for h, p in step.top[:2])
     return StepRow(str(step.index), format_stamp_short(step.at), what, clean_text(step.note or ""),
                    format_reading(step),
                    format_range(step.expected_low, step.expected_high, step.unit),
                    clean_text(step.verdict or ""), leading, step.index in undone)
+
+
+def report_cautions(record: SessionRecord) -> tuple[str, ...]:
+    """The cautions a report carries: the session's own, then the two for every page.
+
+    A record that kept none (written before cautions were recorded) gets every caution of
+    :mod:`assistant.cautions`, since which applied can no longer be told.
+    """
+    own = [clean_text(c).strip() for c in record.cautions]
+    chosen = [*own, *caution_texts.EVERY_PAGE] if any(own) else list(caution_texts.ALL)
+    return tuple(dict.fromkeys(c for c in chosen if c))
 
 
 def report_content(record: SessionRecord, names: Mapping[str, str] | None = None) -> ReportContent:
@@ -149,7 +150,7 @@ def report_content(record: SessionRecord, names: Mapping[str, str] | None = None
              ("Finished", format_stamp(record.finished) or "not yet"),
              ("Technician", clean_text(record.technician or "") or "not given"),
              *_vehicle_facts(record),
-             ("Complaint", clean_text(record.complaint or "") or "not given"),
+             ("Complaint", complaint_text(record) or "not given"),
              ("Fault codes", ", ".join(clean_text(c) for c in record.fault_codes)
               or "none recorded"),
              ("Meter profile", clean_text(record.meter_profile)),
@@ -164,10 +165,11 @@ def report_content(record: SessionRecord, names: Mapping[str, str] | None = None
     verification = clean_text(record.verification or "")
     if verification_steps:
         last = verification_steps[-1]
-        verification = (f"{_name(last.test_id, names)}: {format_reading(last)}, healthy "
-                        f"{format_range(last.expected_low, last.expected_high, last.unit)}: "
-                        f"{clean_text(last.verdict or 'no verdict')} "
-                        f"(step {last.index}, {format_stamp(last.at)})")
+        healthy = format_range(last.expected_low, last.expected_high, last.unit)
+        verification = (f"{_name(last.test_id, names)}: {format_reading(last)}"
+                        + (f", healthy {healthy}" if healthy else "")
+                        + f": {clean_text(last.verdict or 'no verdict')}"
+                        f" (step {last.index}, {format_stamp(last.at)})")
     return ReportContent(
         title=f"Electrical fault diagnosis report: session {clean_text(record.id)}",
         in_progress=in_progress, status_line=status,
@@ -180,11 +182,12 @@ def report_content(record: SessionRecord, names: Mapping[str, str] | None = None
         diagnosis_probability=format_probability(record.probability),
         stopped_because=clean_text(record.stopped_because or ""),
         alternatives=tuple((_name(h, names), format_probability(p)) for h, p in record.alternatives),
+        cannot_tell_apart=tuple(_name(f, names) for f in record.ambiguity_group
+                                if f != record.diagnosis),
         repair=clean_text(record.repair or "") or ("not yet done" if in_progress else "none recorded"),
         verification=verification or ("not yet made" if in_progress else "none recorded"),
         steps=tuple(_step_row(s, names, undone) for s in record.steps),
-        cautions=tuple(dict.fromkeys([*(clean_text(c) for c in record.cautions),
-                                      *GENERAL_CAUTIONS])),
+        cautions=report_cautions(record),
         digest=str(integrity["digest"]), step_count=int(integrity["step_count"]),
         last_step_digest=str(integrity["last_step_digest"] or "none (no steps)"),
         generator=f"ohmtrail {__version__}")
@@ -240,6 +243,9 @@ def report_html(record: SessionRecord, names: Mapping[str, str] | None = None) -
         parts.append('<p>Alternatives left:</p><table class="facts">')
         parts += [f"<tr><th>{_e(h)}</th><td>{_e(p)}</td></tr>" for h, p in c.alternatives]
         parts.append("</table>")
+    if c.cannot_tell_apart:
+        parts.append("<p>No test of the ruleset can tell the diagnosis from: "
+                     f"{_e('; '.join(c.cannot_tell_apart))}.</p>")
     parts.append(f"<h2>Repair</h2><p>{_e(c.repair)}</p>")
     parts.append(f"<h2>Verification</h2><p>{_e(c.verification)}</p>")
     parts.append('<h2>Steps</h2><table class="steps"><tr><th>#</th><th>time (UTC)</th><th>step</th>'
@@ -304,7 +310,7 @@ def session_names(record: SessionRecord) -> dict[str, str]:
     Empty (so that ids are shown) when the record names no file, the file cannot be loaded,
     or its SHA-256 differs from the one recorded: names from another version could mislead.
     """
-    path = getattr(record, "ruleset_path", None)
+    path = record.ruleset_path
     if not path:
         return {}
     try:

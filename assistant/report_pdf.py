@@ -59,8 +59,22 @@ def _register_fonts() -> None:
                                   boldItalic=_FONTS["bolditalic"])
 
 
+# A table row cannot break across pages in reportlab: a cell taller than a page stops the whole
+# report (LayoutError). No cell is let grow past this many characters of user text; the HTML
+# report and the JSON export keep the whole text. (Found by tests/test_injection.py: a 10 KB
+# technician name made the PDF fail.)
+MAX_CELL_CHARS = 1200
+MAX_CELL_LINES = 30
+
+
 def _p(text: str) -> str:
-    """Plain text as reportlab paragraph markup: escaped, line breaks kept."""
+    """Plain text as reportlab paragraph markup: escaped, line breaks kept, overlong text cut."""
+    lines = text.split("\n")
+    if len(lines) > MAX_CELL_LINES:  # the rest run on, so that a cell stays shorter than a page
+        text = "\n".join(lines[: MAX_CELL_LINES - 1] + [" ".join(lines[MAX_CELL_LINES - 1:])])
+    if len(text) > MAX_CELL_CHARS:
+        text = (f"{text[:MAX_CELL_CHARS]} ... [{len(text) - MAX_CELL_CHARS} more characters; "
+                "the HTML report and the JSON export hold the whole text]")
     return escape(text).replace("\n", "<br/>")
 
 
@@ -183,6 +197,9 @@ def pdf_from_content(content: ReportContent, trail_png: bytes | None,
     if content.alternatives:
         block += [Spacer(1, 2 * mm), Paragraph("Alternatives left:", st["body"]),
                   _facts_table(content.alternatives, st)]
+    if content.cannot_tell_apart:
+        block.append(Paragraph(_p("No test of the ruleset can tell the diagnosis from: "
+                                  + "; ".join(content.cannot_tell_apart) + "."), st["body"]))
     story.append(KeepTogether(block))
     story += [Paragraph("Repair", st["h2"]), Paragraph(_p(content.repair), st["body"]),
               Paragraph("Verification", st["h2"]), Paragraph(_p(content.verification), st["body"]),

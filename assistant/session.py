@@ -27,7 +27,7 @@ from assistant.errors import OhmtrailError, ReadingError, SessionError
 from assistant.export import step_digest
 from assistant.page import PageMaker, Question, verdict
 from assistant.reading import Reading, parse_reading
-from assistant.record import SessionRecord, Step, VehicleInfo
+from assistant.record import SessionRecord, Step
 from assistant.sources import Answer, Intake, Note, Quit, ReadingSource, Remeasure, Skip, Undo
 
 if TYPE_CHECKING:
@@ -84,15 +84,16 @@ class Engine:
 
 
 def engine_for_record(record: SessionRecord, meter: MeterProfile | None = None) -> Engine:
-    """The engine a stored session ran on: its ruleset file, unchanged (same SHA-256), predicted anew."""
+    """The engine a stored session ran on: its ruleset file and overlays, unchanged, predicted anew."""
     from assistant.ruleset.load import load_ruleset
 
     if not record.ruleset_path:
         raise SessionError(f"session {record.id} does not say which ruleset file it used")
-    loaded = load_ruleset(record.ruleset_path)
-    if loaded.sha256 != record.ruleset_sha256:
-        raise SessionError(f"ruleset {record.ruleset_path} has changed since session {record.id} started "
-                           "(its SHA-256 differs), so its readings would not mean the same")
+    overlays = [label.rsplit(" sha256:", 1)[0] for label in record.overlays]
+    loaded = load_ruleset(record.ruleset_path, overlays, beside=False)
+    if loaded.sha256 != record.ruleset_sha256 or loaded.overlays != record.overlays:
+        raise SessionError(f"ruleset {record.ruleset_path} or its overlays changed since session {record.id} "
+                           "started (SHA-256 differs), so its readings would not mean the same")
     return Engine.build(loaded, meter)
 
 
@@ -118,7 +119,7 @@ class Session:
         self.id = record.id
         self._record = record
         self._steps: list[Step] = list(record.steps)
-        self._answers: list[int] = []  # indices of the reading steps now in effect, for undo
+        self._answers: list[int] = []  # the reading and skip steps now in effect, the last to undo first
         self._pending = pending  # a remeasure asked for: the next question
         self._rules = set(diagnosis.rules_fired)
 
@@ -142,12 +143,10 @@ class Session:
         diagnosis = engine.start(engine.loaded, engine.table, engine.context(record), threshold)
         store.create(record)
         session = cls(store, record, engine, diagnosis)
-        session._rules = set()
-        complaint = next((c.text for c in ruleset.complaints if c.id == intake.complaint), None)
-        session._write("start", top=session._top(), note=complaint)
-        session._fired(source)
+        session._write_start(source)
         for text in intake.notes:
             session._write("note", note=text)
+            source.tell(f"note: {text}")
         log.info("session %s started on %s", record.id, ruleset.id)
         return session
 
@@ -165,7 +164,18 @@ class Session:
         diagnosis = engine.start(engine.loaded, engine.table, engine.context(record), record.threshold)
         session = cls(store, record, engine, diagnosis)
         session._replay()
+        if not session._steps:
+            # Killed between creating the record and writing its first step: write it now, so
+            # the trail still opens with the complaint and the rules that fired at the start.
+            session._write_start(None)
         return session
+
+    def _write_start(self, source: ReadingSource | None) -> None:
+        self._rules = set()
+        ruleset = self.engine.loaded.ruleset
+        complaint = next((c.text for c in ruleset.complaints if c.id == self._record.complaint), None)
+        self._write("start", top=self._top(), note=complaint)
+        self._fired(source)
 
     def _replay(self) -> None:
         for step in self._steps:
@@ -175,6 +185,7 @@ class Session:
                 self._pending = None
             elif step.kind == "skip" and step.test_id:
                 self.diagnosis = self.diagnosis.skip(step.test_id)
+                self._answers.append(step.index)
                 self._pending = None
             elif step.kind == "undo":
                 self.diagnosis = self.diagnosis.undo()
@@ -221,14 +232,15 @@ class Session:
     def _top(self, n: int = 3) -> tuple[tuple[str, float], ...]:
         return tuple((h, float(p)) for h, p in self.diagnosis.ranking()[:n])
 
-    def _fired(self, source: ReadingSource) -> tuple[str, ...]:
+    def _fired(self, source: ReadingSource | None) -> tuple[str, ...]:
         """Write a rule step for each decision rule that fired since the last look; their ids."""
         new = tuple(r for r in self.diagnosis.rules_fired if r not in self._rules)
         why = {r.id: r.why for r in self.engine.loaded.ruleset.rules}
         for rule_id in new:
             self._rules.add(rule_id)
             self._write("rule", rules_fired=(rule_id,), note=why.get(rule_id), top=self._top())
-            source.tell(f"rule {rule_id}: {why.get(rule_id) or 'fired'}")
+            if source is not None:
+                source.tell(f"rule {rule_id}: {why.get(rule_id) or 'fired'}")
         return new
 
     # ------------------------------------------------------------------ running
@@ -262,7 +274,8 @@ class Session:
         elif isinstance(action, Skip):
             self.diagnosis = self.diagnosis.skip(test_id)
             self._pending = None
-            self._write("skip", test_id=test_id, top=self._top())
+            step = self._write("skip", test_id=test_id, top=self._top())
+            self._answers.append(step.index)
             self._fired(source)
         elif isinstance(action, Undo):
             self._undo(source)
@@ -315,7 +328,12 @@ class Session:
         self._pending = None
         self._write("undo", refers_to=taken_back, top=self._top())
         what = self._steps[taken_back] if taken_back is not None else None
-        source.tell(f"took back {what.test_id}: {what.reading_text}" if what else "took back the last answer")
+        if what is None:
+            source.tell("took back the last answer")
+        elif what.kind == "skip":
+            source.tell(f"took back the skip of {what.test_id}")
+        else:
+            source.tell(f"took back {what.test_id}: {shown_reading(what)}")
 
     def _remeasure(self, test_id: str, source: ReadingSource) -> None:
         try:
@@ -335,6 +353,7 @@ class Session:
             self.id, status="concluded", diagnosis=conclusion.diagnosis,
             probability=float(conclusion.probability), alternatives=alternatives,
             stopped_because=conclusion.stopped_because, repair=repair,
+            ambiguity_group=tuple(getattr(conclusion, "group", ())),
             cautions=self.engine.pages.session_cautions(getattr(self.diagnosis, "cautions", ())),
         )
         self._record = self.store.load(self.id)
@@ -400,19 +419,20 @@ def summary_json(record: SessionRecord) -> dict[str, Any]:
         steps.append({"test": step.test_id, "kind": step.kind, "reading": reading if step.kind == "reading" else None,
                       "unit": step.unit, "top": [[h, p] for h, p in step.top]})
     return {"session": record.id, "ruleset": record.ruleset_id, "status": record.status,
-            "diagnosis": record.diagnosis, "probability": record.probability, "steps": steps,
+            "diagnosis": record.diagnosis, "probability": record.probability,
+            "ambiguity_group": list(record.ambiguity_group), "steps": steps,
             "stopped_because": record.stopped_because}
 
 
-def vehicle_text(vehicle: VehicleInfo) -> str:
-    """The vehicle in a few words for lists and headers."""
-    parts = []
-    if vehicle.fleet_number:
-        parts.append(f"fleet {vehicle.fleet_number}")
-    if vehicle.vin:
-        parts.append(f"VIN {vehicle.vin}")
-    if vehicle.model_year:
-        parts.append(str(vehicle.model_year))
-    if vehicle.odometer_km is not None:
-        parts.append(f"{vehicle.odometer_km:,.0f} km")
-    return ", ".join(parts)
+def session_json(record: SessionRecord) -> dict[str, Any]:
+    """A stored session for ``ohmtrail sessions --json``: its header and every step, briefly."""
+    steps = [{"index": s.index, "kind": s.kind, "at": s.at, "test": s.test_id,
+              "reading": s.reading if s.reading is not None else s.reading_text, "unit": s.unit,
+              "verdict": s.verdict, "note": s.note} for s in record.steps]
+    return {"id": record.id, "ruleset": record.ruleset_id, "ruleset_version": record.ruleset_version,
+            "source": record.source, "vehicle": record.vehicle.model_dump(), "technician": record.technician,
+            "complaint": record.complaint, "fault_codes": list(record.fault_codes), "started": record.started,
+            "finished": record.finished, "status": record.status, "step_count": len(record.steps),
+            "diagnosis": record.diagnosis, "probability": record.probability,
+            "ambiguity_group": list(record.ambiguity_group), "steps": steps}
+

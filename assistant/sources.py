@@ -23,6 +23,7 @@ from typing import TYPE_CHECKING, Any, Protocol, Union
 import numpy as np
 from pydantic import ValidationError
 
+from assistant.display import format_quantity
 from assistant.errors import AnswersFileError, ReadingError, RulesetError, SessionError
 from assistant.reading import Reading, parse_reading
 from assistant.record import VehicleInfo
@@ -273,16 +274,25 @@ class SimulatedSource:
         self.hypothesis_id = hypothesis_id
         self.seed = seed
         self.rng = np.random.default_rng(seed)
+        # One Monte Carlo sample for the whole vehicle: one fault magnitude behind every reading.
+        self.sample = int(self.rng.integers(table.samples.shape[2]))
         self._intake = intake or Intake(technician="simulator")
         self.label = f"simulate {hypothesis_id} seed {seed}"
 
     def intake(self, ruleset: Ruleset) -> Intake:
         return self._intake
 
-    def _draw(self, hypothesis: int, test_id: str) -> Reading:
+    def _draw(self, hypothesis: int, test_id: str, sample: int | None = None) -> Reading:
         from assistant.simulate import draw_reading  # the diagnosis engine's meter model
 
-        return draw_reading(self.table, hypothesis, self.table.test_index(test_id), self.rng)
+        reading = draw_reading(self.table, hypothesis, self.table.test_index(test_id), self.rng,
+                               sample=self.sample if sample is None else sample)
+        if reading.value is None:
+            return reading
+        # As the meter shows it: 25.3 mV, and 0.0253 rather than the float 0.025300000000000003.
+        value = float(f"{reading.value:.12g}")
+        return Reading(text=format_quantity(value, self.table.tests[self.table.test_index(test_id)].unit),
+                       value=value)
 
     def ask(self, question: Question) -> Action:
         return Answer(reading=self._draw(self.hypothesis, question.test.id))
@@ -299,8 +309,11 @@ class SimulatedSource:
             return Closing(repair)
         true_faults = set(self.table.hypotheses[self.hypothesis].faults)
         repaired = set(page.repaired_faults)
-        after = 0 if true_faults <= repaired else self.hypothesis  # 0 is "none": the circuit healthy
-        return Closing(repair, Answer(reading=self._draw(after, page.verification.test.id)))
+        if true_faults <= repaired:  # the repair removed the fault: the circuit reads as a healthy one
+            reading = self._draw(0, page.verification.test.id, int(self.rng.integers(self.table.samples.shape[2])))
+        else:
+            reading = self._draw(self.hypothesis, page.verification.test.id)
+        return Closing(repair, Answer(reading=reading))
 
 
 # --------------------------------------------------------------------------- the conversation, written

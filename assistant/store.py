@@ -70,22 +70,22 @@ _meta = Table(
 _sessions = Table(
     "ohmtrail_sessions",
     _metadata,
-    Column("id", String(128), primary_key=True),
-    Column("ruleset_id", String(128), nullable=False),
-    Column("started", String(40), nullable=False),
+    Column("id", Text, primary_key=True),
+    Column("ruleset_id", Text, nullable=False),
+    Column("started", Text, nullable=False),
     Column("status", String(16), nullable=False),
-    Column("header", Text, nullable=False),  # the SessionRecord without its steps, JSON
-    Column("updated", String(40), nullable=False),
+    Column("header", Text, nullable=False),  # the SessionRecord without its steps, JSON: the truth
+    Column("updated", Text, nullable=False),
 )
 _steps = Table(
     "ohmtrail_steps",
     _metadata,
-    Column("session_id", String(128), ForeignKey("ohmtrail_sessions.id"), primary_key=True),
+    Column("session_id", Text, ForeignKey("ohmtrail_sessions.id"), primary_key=True),
     Column("idx", Integer, primary_key=True, autoincrement=False),
     Column("kind", String(16), nullable=False),
-    Column("at", String(40), nullable=False),
-    Column("digest", String(64)),
-    Column("body", Text, nullable=False),  # the Step, JSON
+    Column("at", Text, nullable=False),
+    Column("digest", Text),
+    Column("body", Text, nullable=False),  # the Step, JSON: the truth; the columns beside it are for queries
 )
 
 
@@ -222,6 +222,8 @@ class Store:
 
     def create(self, record: SessionRecord) -> None:
         """Write a new session with any steps it already has (SessionError if the id is taken)."""
+        if "\x00" in record.id or not record.id.strip():
+            raise SessionError(f"{record.id!r} cannot be a session id")
         header = _header(record)
         now = _now()
         with self._guard("create a session in"):
@@ -230,7 +232,7 @@ class Store:
                 if exists:
                     raise SessionError(f"a session with id '{record.id}' already exists in {self.where}")
                 conn.execute(insert(_sessions).values(
-                    id=record.id, ruleset_id=record.ruleset_id, started=record.started,
+                    id=record.id, ruleset_id=_column(record.ruleset_id), started=_column(record.started),
                     status=record.status, header=header, updated=now))
                 for i, step in enumerate(record.steps):
                     if step.index != i:
@@ -381,8 +383,14 @@ def _header(record: SessionRecord) -> str:
 
 
 def _step_row(session_id: str, step: Step) -> dict[str, Any]:
-    return {"session_id": session_id, "idx": step.index, "kind": step.kind, "at": step.at,
-            "digest": step.digest, "body": _dumps(step.model_dump(mode="python"))}
+    return {"session_id": session_id, "idx": step.index, "kind": step.kind, "at": _column(step.at),
+            "digest": None if step.digest is None else _column(step.digest),
+            "body": _dumps(step.model_dump(mode="python"))}
+
+
+def _column(text: str) -> str:
+    # PostgreSQL text cannot hold NUL; the query columns may lose it, the JSON beside them keeps it.
+    return text.replace("\x00", "\ufffd")
 
 
 def _summary(header: dict[str, Any], steps: int) -> SessionSummary:

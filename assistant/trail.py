@@ -24,6 +24,7 @@ import graphviz
 
 from assistant.display import (
     clean_text,
+    complaint_text,
     format_clock,
     format_probability,
     format_range,
@@ -105,13 +106,13 @@ def _suspects(top: tuple[tuple[str, float], ...], names: Mapping[str, str]) -> s
 
 def _reading_rows(step: Step, names: Mapping[str, str], *, struck: bool) -> list[str]:
     read = html_text(format_reading(step) or "-", 20)
-    expected = html_text(format_range(step.expected_low, step.expected_high, step.unit) or "-", 22)
+    expected = html_text(format_range(step.expected_low, step.expected_high, step.unit), 22)
     verdict = html_text(step.verdict or "", 14)
     if struck:
         read, verdict = f"<S>{read}</S>", f"<S>{verdict}</S>"
     verdict_fill = None if struck else (_FILL["in range"] if step.verdict == "in range"
                                         else _OUT_OF_RANGE_FILL if step.verdict else None)
-    rows = [_cell(f"read <B>{read}</B>") + _cell(f"healthy {expected}")
+    rows = [_cell(f"read <B>{read}</B>") + _cell(f"healthy {expected}" if expected else "")
             + _cell(f"<B>{verdict}</B>" if verdict else "", bgcolor=verdict_fill)]
     if step.top and not struck:
         rows.append(_cell(_suspects(step.top, names), colspan=3))
@@ -132,7 +133,7 @@ def _complaint_label(record: SessionRecord, start: Step | None,
                         else None, str(vehicle.model_year) if vehicle.model_year else None) if b]
     rows = [_cell("<B>Complaint</B>" + (f"  {html.escape(format_clock(start.at))}"
                                         if start else ""), colspan=3),
-            _cell(html_text(record.complaint or "(none given)"), colspan=3)]
+            _cell(html_text(complaint_text(record) or "(none given)"), colspan=3)]
     if bits:
         rows.append(_cell('<FONT POINT-SIZE="9">vehicle: ' + html_text(" · ".join(bits))
                           + "</FONT>", colspan=3))
@@ -217,6 +218,10 @@ def _conclusion_rows(step: Step, record: SessionRecord, names: Mapping[str, str]
     if why:
         rows.append(_cell('<FONT POINT-SIZE="9">stopped: ' + html_text(why, MAIN_WIDTH - 9)
                           + "</FONT>", colspan=3))
+    if step.test_id:
+        rows.append(_cell('<FONT POINT-SIZE="9">verify with: '
+                          + html_text(_name(step.test_id, names), MAIN_WIDTH - 13) + "</FONT>",
+                          colspan=3))
     others = record.alternatives or (ranking[1:] if ranking else ())
     if others:
         parts = "\n".join(f"{_name(h, names)}\xa0{_nbsp(format_probability(p))}"

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 import re
+import signal
 import time
 import traceback
 from collections import Counter
@@ -23,7 +24,7 @@ from typing import Any
 from hypothesis import HealthCheck, Phase, given, settings
 from hypothesis import strategies as st
 
-from assistant.errors import Problem, RulesetError
+from assistant.errors import LocatedError, Problem, RulesetError
 from assistant.ruleset import fault_list, load_ruleset
 from assistant.ruleset.lint import lint_ruleset
 
@@ -45,7 +46,7 @@ HOSTILE_SCALARS = (
     "18 AWG", "0000 AWG", "99 AWG", "1/0 AWG", "5/0 AWG", "1.5 mm2", "1.5 mm3", "1.5", "3 min", "0 min",
     "-3 min", "1e9 min", "20 degC", "-300 degC", "500 K", "'<script>alert(1)</script>'",
     "\"'; DROP TABLE sessions; --\"", "'a\" [label=\"x\"]; b -> c'", "$(rm -rf /)", "`id`",
-    "../../../etc/passwd", "{{ 7 * 7 }}",
+    "../../../etc/passwd", "{{ 7 * 7 }}", "12 V)", "12 (V", "12 V**", "12 __import__",
 )
 
 # Tags that would build objects or unusual kinds in a permissive loader.
@@ -80,15 +81,36 @@ def _value_lines(lines: list[str]) -> list[int]:
     return [i for i, line in enumerate(lines) if _KEY_VALUE.match(line)]
 
 
+# Core YAML tags a loader may take as plain data; any other tag must be refused as such.
+SAFE_TAGS = ("!!str", "!!int", "!!float", "!!null", "!!bool", "!!map", "!!seq")
+
+DIRECTIVES = (
+    ("%YAML 1.1\n---\n", "YAML 1.2"),  # would switch to 1.1 rules: `no` false, `010` eight
+    ("%YAML 1.2\n---\n", None),
+    ("%YAML 2.0\n---\n", "YAML"),
+    ("%TAG !! tag:example.org,2024:\n---\n", None),  # the file uses no !! tags of its own
+    ("---\n", None),
+    ("--- !!map\n", None),
+)
+
+
 @st.composite
-def mutated_ruleset(draw: st.DrawFn) -> tuple[str, bytes]:
-    """(mutation kind, bytes) of a bundled ruleset with one kind of damage done to it."""
-    path = draw(st.sampled_from(BUNDLED))
-    text = BUNDLED_TEXT[path]
+def mutated_ruleset(draw: st.DrawFn) -> tuple[str, bytes, str | None]:
+    """(mutation kind, bytes, expected refusal) of a bundled ruleset with one kind of damage.
+
+    The third member, when set, is a fragment the refusal must contain: a hostile YAML tag
+    must be refused as a tag, whatever else is wrong with the value it sits on.
+    """
+    return mutate_text(draw, BUNDLED_TEXT[draw(st.sampled_from(BUNDLED))])
+
+
+def mutate_text(draw: st.DrawFn, text: str, extra_values: tuple[str, ...] = ()) -> tuple[str, bytes, str | None]:
+    """One kind of damage done to a YAML text: (kind, bytes, expected refusal or None)."""
+    expect: str | None = None
     lines = text.split("\n")
     kind = draw(st.sampled_from((
         "delete_lines", "swap_values", "hostile_value", "random_bytes", "deep_nesting", "yaml_tag",
-        "duplicate_line", "indent", "truncate", "aliases", "random_text_value",
+        "duplicate_line", "indent", "truncate", "aliases", "random_text_value", "directive",
     )))
     values = _value_lines(lines)
     if kind == "delete_lines":
@@ -107,9 +129,13 @@ def mutated_ruleset(draw: st.DrawFn) -> tuple[str, bytes]:
         m = _KEY_VALUE.match(lines[i])
         assert m
         if kind == "hostile_value":
-            new = draw(st.sampled_from(HOSTILE_SCALARS))
+            new = draw(st.sampled_from(HOSTILE_SCALARS + extra_values))
         elif kind == "yaml_tag":
             new = draw(st.sampled_from(HOSTILE_TAGS))
+            if new.startswith("!!timestamp"):
+                expect = "a date is not expected"
+            elif not new.startswith(SAFE_TAGS):
+                expect = "tag" if new.startswith(("!!python", "!custom", "!<", "!!merge")) else "(!!"
         elif kind == "random_text_value":
             new = draw(st.text(min_size=0, max_size=40))
         else:
@@ -117,6 +143,9 @@ def mutated_ruleset(draw: st.DrawFn) -> tuple[str, bytes]:
             opener, closer = draw(st.sampled_from((("[", "]"), ("{a: ", "}"))))
             new = opener * depth + "1" + closer * draw(st.sampled_from((depth, 0, max(depth - 1, 0))))
         lines[i] = m.group(1) + " " + new.replace("\n", "\n" + " " * (len(m.group(1)) - len(m.group(1).lstrip()) + 2))
+    elif kind == "directive":
+        directive, expect = draw(st.sampled_from(DIRECTIVES))
+        lines.insert(0, directive.rstrip("\n"))
     elif kind == "duplicate_line":
         i = draw(st.integers(0, len(lines) - 1))
         lines.insert(draw(st.integers(0, len(lines))), lines[i])
@@ -151,24 +180,38 @@ def mutated_ruleset(draw: st.DrawFn) -> tuple[str, bytes]:
         data = bytes(buf)
     elif kind == "truncate":
         data = data[: draw(st.integers(0, len(data)))]
-    return kind, data
+    return kind, data, expect
 
 
 # --------------------------------------------------------------------------- contracts
 
 
-def assert_one_line_located(err: Exception, file: str) -> None:
+def assert_one_line_located(err: Exception, file: str, error_type: type[LocatedError] = RulesetError) -> None:
     """A refusal the CLI can print as one line, pointing into the file."""
     text = str(err)
     assert text, "empty error message"
     assert "\n" not in text and "\r" not in text, f"message over several lines: {text!r}"
     assert len(text) < 2000, f"message of {len(text)} characters"
-    assert isinstance(err, RulesetError)
+    assert isinstance(err, error_type)
+    assert isinstance(err, LocatedError)
     for problem in err.problems:
         assert isinstance(problem, Problem)
         assert problem.file == file, f"problem without its file: {problem}"
         assert problem.line is not None and problem.line >= 1, f"problem without a line: {problem}"
         assert "\n" not in problem.message, f"problem over several lines: {problem.message!r}"
+
+
+_CONTROL = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\x7f-\x9f]")
+
+
+def _all_strings(value: Any) -> list[str]:
+    if isinstance(value, str):
+        return [value]
+    if isinstance(value, dict):
+        return [s for k, v in value.items() for s in _all_strings(k) + _all_strings(v)]
+    if isinstance(value, (list, tuple)):
+        return [s for v in value for s in _all_strings(v)]
+    return []
 
 
 def _all_floats(value: Any) -> list[float]:
@@ -181,15 +224,28 @@ def _all_floats(value: Any) -> list[float]:
     return []
 
 
-def check_ruleset_file(path: Path) -> str:
-    """Load one ruleset file: it loads soundly or is refused with a located RulesetError."""
+def check_ruleset_file(path: Path, expect: str | None = None) -> str:
+    """Load one ruleset file: it loads soundly or is refused with a located RulesetError.
+
+    Soundly: every number finite, every text encodable as UTF-8 (the store, export and report
+    need it) and free of control characters (they would reach the terminal), lint runs
+    without raising, and a clean ruleset's priors form a distribution. ``expect``: the input
+    must be refused with a message containing it.
+    """
     try:
         loaded = load_ruleset(path)
     except RulesetError as err:
         assert_one_line_located(err, str(path))
+        if expect is not None:
+            assert expect in str(err), f"refused, but not for the reason expected ({expect!r}): {err}"
         return "refused"
-    floats = _all_floats(loaded.ruleset.model_dump())
+    assert expect is None, f"loaded, but it should have been refused ({expect!r})"
+    dumped = loaded.ruleset.model_dump()
+    floats = _all_floats(dumped)
     assert all(math.isfinite(f) for f in floats), "a loaded ruleset holds a number that is not finite"
+    for text in _all_strings(dumped):
+        text.encode("utf-8")  # UnicodeEncodeError on a lone surrogate
+        assert not _CONTROL.search(text), f"a loaded ruleset holds a control character: {text[:80]!r}"
     problems = lint_ruleset(loaded)  # must not raise, whatever passed the schema
     for problem in problems:
         assert problem.file == str(path) and problem.line is not None, f"lint problem not located: {problem}"
@@ -205,11 +261,11 @@ def check_ruleset_file(path: Path) -> str:
     return "accepted" if not problems else "refused"
 
 
-def check_ruleset_bytes(data: bytes, folder: Path) -> str:
+def check_ruleset_bytes(data: bytes, folder: Path, expect: str | None = None) -> str:
     """Write the bytes as a ruleset file in ``folder`` and check it."""
     path = folder / "fuzzed.yaml"
     path.write_bytes(data)
-    return check_ruleset_file(path)
+    return check_ruleset_file(path, expect)
 
 
 # --------------------------------------------------------------------------- long runs
@@ -230,14 +286,24 @@ class FuzzReport:
     seconds: float = 0.0
 
 
+class InputTimeout(Exception):
+    """One input took longer than the run's time limit per input."""
+
+
+def _alarm(_signum: int, _frame: Any) -> None:
+    raise InputTimeout("input took longer than the time limit")
+
+
 def run_budget(target: str, strategy: st.SearchStrategy[Any], check: Callable[[Any], str], examples: int,
-               kind_of: Callable[[Any], str] = lambda _x: "") -> FuzzReport:
+               kind_of: Callable[[Any], str] = lambda _x: "", time_limit: float = 20.0) -> FuzzReport:
     """Feed ``examples`` generated inputs to ``check``; count outcomes and distinct failures.
 
     Unlike a property test it does not stop at the first failure: each distinct one (by
     exception type and the line that raised it) is kept with the first input that showed it.
+    An input that runs past ``time_limit`` seconds is stopped and counted as a failure.
     """
     report = FuzzReport(target)
+    previous = signal.signal(signal.SIGALRM, _alarm)
 
     @settings(max_examples=examples, deadline=None, database=None, phases=[Phase.generate],
               suppress_health_check=list(HealthCheck))
@@ -247,19 +313,31 @@ def run_budget(target: str, strategy: st.SearchStrategy[Any], check: Callable[[A
         kind = kind_of(value)
         report.kinds[kind] += 1
         start = time.perf_counter()
+        signal.setitimer(signal.ITIMER_REAL, time_limit)
         try:
             report.outcomes[check(value)] += 1
         except Exception as exc:  # the point: anything but the contract is a finding
             report.failed += 1
-            tb = traceback.extract_tb(exc.__traceback__)[-1]
-            key = f"{type(exc).__name__} at {Path(tb.filename).name}:{tb.lineno}: {str(exc).splitlines()[0][:160] if str(exc) else ''}"
+            if isinstance(exc, InputTimeout):
+                key = f"input took over {time_limit:g} s"
+            else:
+                tb = traceback.extract_tb(exc.__traceback__)[-1]
+                first = str(exc).splitlines()[0] if str(exc) else ""
+                # one failure, whatever file, number or character it names
+                first = re.sub(r"\S*fuzzed\.yaml(:\d+)*", "FILE", first)
+                first = re.sub(r"#x[0-9a-f]+|U\+[0-9A-F]+|\d+", "N", first)[:120]
+                key = f"{type(exc).__name__} at {Path(tb.filename).name}:{tb.lineno}: {first}"
             report.failures.setdefault(key, f"[{kind}] {value!r}"[:300])
         finally:
+            signal.setitimer(signal.ITIMER_REAL, 0)
             took = time.perf_counter() - start
             if took > report.slowest_seconds:
                 report.slowest_seconds, report.slowest_kind = took, kind
 
     start = time.perf_counter()
-    run()
+    try:
+        run()
+    finally:
+        signal.signal(signal.SIGALRM, previous)
     report.seconds = time.perf_counter() - start
     return report

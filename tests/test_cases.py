@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -87,12 +88,15 @@ def test_order_and_max_tests_are_checked(lamp: Path) -> None:
 
 
 def test_a_bad_reading_in_a_case_is_located_and_the_others_still_run(lamp: Path) -> None:
-    two = _variant(lamp, CASE, CASE.replace("12.6 V", "12.6 ohm") + "\n" + CASE.replace("lamp_blown", "again"))
+    # every meter reading of the first case in the wrong unit: whichever test comes first fails
+    bad = CASE.replace("12.6 V", "12.6 ohm").replace("0.00 V", "0.00 ohm").replace("r_lamp: OL", "r_lamp: 5 V")
+    two = _variant(lamp, CASE, bad + "\n" + CASE.replace("lamp_blown", "again"))
     first, second = check_paths([two]).results
     assert not first.passed and second.passed
     (difference,) = first.differences
     line = next(i for i, text in enumerate(two.read_text(encoding="utf-8").splitlines(), 1) if "12.6 ohm" in text)
-    assert difference.startswith(f"{two}:{line}:") and "reading '12.6 ohm' for v_lamp_feed" in difference
+    assert difference.startswith(f"{two}:{line}:")
+    assert re.search(r"reading '(12.6 ohm|0.00 ohm|5 V)' for (v_lamp_feed|drop_ground|r_lamp)", difference)
 
 
 def test_rulesets_that_cannot_run_are_problems_not_tracebacks(lamp: Path, tmp_path: Path,
@@ -103,3 +107,8 @@ def test_rulesets_that_cannot_run_are_problems_not_tracebacks(lamp: Path, tmp_pa
     assert "cannot have fault mode" in err or "unknown fault 'lamp.seized'" in err
     assert "missing.yaml: no such file" in err
     assert "2 ruleset problems" in err
+
+
+def test_a_folder_without_rulesets_is_an_error(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["check", str(tmp_path)]) == 1
+    assert capsys.readouterr().err == f"ohmtrail: no ruleset files (*.yaml) under {tmp_path}\n"

@@ -117,3 +117,29 @@ def test_closed_sessions_of_the_store_count(ruleset: Path, tmp_path: Path, capsy
     out = capsys.readouterr().out
     assert "3 repairs counted" in out
     assert next(ln for ln in out.splitlines() if ln.startswith("c40.high_resistance ")).split()[1] == "3"
+
+
+def test_simulate_and_predict_take_the_overlay(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+                                               capsys: pytest.CaptureFixture[str]) -> None:
+    import json
+
+    from assistant.scaffold import write_scaffold
+
+    monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
+    lamp = write_scaffold("lamp", "plate", tmp_path / "plate.yaml")
+    overlay = tmp_path / "o.yaml"
+    overlay.write_text("overlay: 1\nruleset: plate\nweights:\n  g_point.high_resistance: 40\n", encoding="utf-8")
+
+    def prior(argv: list[str]) -> float:
+        assert main(argv) == 0
+        data = json.loads(capsys.readouterr().out)
+        return next(p["prior"] for p in data["per_hypothesis"] if p["hypothesis"] == "g_point.high_resistance")
+
+    plain = prior(["simulate", str(lamp), "--trials", "1", "--json"])
+    learned = prior(["simulate", str(lamp), "--trials", "1", "--json", "--overlay", str(overlay)])
+    rs = load_ruleset(lamp).ruleset
+    total = rs.none_weight + sum(f.weight for f in fault_list(rs))
+    assert plain == pytest.approx(2.0 / total)  # the ground type's default weight
+    assert learned == pytest.approx(40.0 / (total - 2.0 + 40.0))
+    assert main(["predict", str(lamp), "--json", "--overlay", str(tmp_path / "missing.yaml")]) == 1
+    assert "missing.yaml: no such file" in capsys.readouterr().err

@@ -21,7 +21,7 @@ from assistant.ruleset.load import MAX_DEPTH, MAX_FILE_BYTES, MAX_VALUES
 from tests.conftest import STOP_LAMPS
 from tests.fuzzing import BUNDLED, assert_one_line_located, check_ruleset_bytes, mutated_ruleset
 
-FUZZ = settings(max_examples=120, deadline=None, suppress_health_check=[HealthCheck.too_slow,
+FUZZ = settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow,
                                                                         HealthCheck.data_too_large])
 
 
@@ -32,12 +32,12 @@ def test_every_bundled_ruleset_is_fuzzed() -> None:
 @FUZZ
 @given(case=mutated_ruleset())
 def test_mutated_rulesets_load_or_are_refused_with_a_place(tmp_path_factory: pytest.TempPathFactory,
-                                                           case: tuple[str, bytes]) -> None:
-    _kind, data = case
-    assert check_ruleset_bytes(data, tmp_path_factory.mktemp("fuzz")) in ("accepted", "refused")
+                                                           case: tuple[str, bytes, str | None]) -> None:
+    _kind, data, expect = case
+    assert check_ruleset_bytes(data, tmp_path_factory.mktemp("fuzz"), expect) in ("accepted", "refused")
 
 
-@settings(max_examples=60, deadline=None)
+@settings(max_examples=40, deadline=None)
 @given(data=st.binary(max_size=400))
 def test_arbitrary_bytes_are_refused_with_a_place(tmp_path_factory: pytest.TempPathFactory, data: bytes) -> None:
     # Random bytes are never a valid ruleset: all must be refused (none may crash).
@@ -58,6 +58,8 @@ def test_arbitrary_bytes_are_refused_with_a_place(tmp_path_factory: pytest.TempP
         ("id: !custom {a: 1}\n", "YAML tag '!custom'"),
         ("id: !!binary aGVsbG8=\n", "binary data (!!binary)"),
         ("id: !!set {a, b}\n", "a set (!!set)"),
+        ("id: !!omap [a: 1]\n", "an ordered map (!!omap)"),
+        ("id: !!pairs [a: 1]\n", "a list of pairs (!!pairs)"),
         # Finding 2: a %YAML 1.1 directive switched the parser to YAML 1.1 (`no` became false,
         # `010` became eight), against the promise that the loader reads YAML 1.2 only.
         ("%YAML 1.1\n---\nid: no\n", "only YAML 1.2 is read"),
@@ -83,6 +85,9 @@ def test_arbitrary_bytes_are_refused_with_a_place(tmp_path_factory: pytest.TempP
         ("format: 1\nsystem_voltage: " + "9" * 5000 + "\n", "a number with thousands of digits"),
         # Finding 8: ruamel's messages for a bad character came on two lines.
         ("a: \x07\n", "unacceptable character"),
+        # Finding 9: pint's parser raised tokenize.TokenError on an unbalanced bracket in a
+        # unit; it passed through pydantic as a crash, not a located error.
+        ("format: 1\nsystem_voltage: 12 V)\n", "has a unit ohmtrail does not know"),
     ],
 )
 def test_fuzz_findings_are_refused_with_one_located_line(tmp_path: Path, yaml_text: str, fragment: str) -> None:
@@ -90,7 +95,7 @@ def test_fuzz_findings_are_refused_with_one_located_line(tmp_path: Path, yaml_te
     path.write_bytes(yaml_text.encode("utf-8", "surrogatepass"))
     with pytest.raises(RulesetError) as info:
         load_ruleset(path)
-    assert fragment in str(info.value)
+    assert any(fragment in str(problem) for problem in info.value.problems), str(info.value)
     assert_one_line_located(info.value, str(path))
 
 
@@ -109,7 +114,7 @@ def test_finding_locations_point_at_the_value(tmp_path: Path) -> None:
 def test_a_ruleset_file_larger_than_the_limit_is_refused(tmp_path: Path) -> None:
     path = tmp_path / "big.yaml"
     path.write_bytes(b"# padding\n" * (MAX_FILE_BYTES // 10 + 1))
-    with pytest.raises(RulesetError, match="a ruleset file is at most") as info:
+    with pytest.raises(RulesetError, match="reads files of at most") as info:
         load_ruleset(path)
     assert_one_line_located(info.value, str(path))
 

@@ -139,3 +139,22 @@ def test_choice_on_a_large_harness_picks_a_candidate() -> None:
     choice = choose_test(p, model, list(range(5, 40)), PlannerSettings())
     assert choice is not None and 5 <= choice.test_index < 40
     assert choice.gain_bits > 0.5  # six levels split sixty hypotheses well
+
+
+def test_state_change_minutes_favour_the_state_already_set() -> None:
+    """With a charge for changing the operating state, a test in the current state wins a near tie."""
+    from assistant.predict import TestInfo
+
+    tests = (TestInfo("a_on", "voltage", "V", 2.0, "on"), TestInfo("b_off", "voltage", "V", 2.0, "off"))
+    spec = {"none": {"a_on": (12.0, 0.05), "b_off": (12.0, 0.05)},
+            "x.open": {"a_on": (0.0, 0.0), "b_off": (0.0, 0.0)}}
+    from assistant.predict import Hypothesis
+    from synthetic_tables import build_table
+
+    table = build_table((Hypothesis("none", (), 0.5, "", 0.0), Hypothesis("x.open", ("x.open",), 0.5, "", 5.0)),
+                        tests, spec)
+    model = build_model(table)
+    p = np.array([0.5, 0.5])
+    charged = PlannerSettings(state_change_minutes=1.0)
+    assert choose_test(p, model, [0, 1], charged, current_state="off").test_index == 1  # type: ignore[union-attr]
+    assert choose_test(p, model, [0, 1], charged, current_state="on").test_index == 0  # type: ignore[union-attr]

@@ -21,7 +21,6 @@ from assistant.errors import OutputError
 from assistant.export import seal_steps, session_digest, verify_export
 from assistant.record import SessionRecord
 from assistant.report import (
-    GENERAL_CAUTIONS,
     render_report,
     report_content,
     report_html,
@@ -54,7 +53,7 @@ def test_the_pdf_reads_back_with_the_diagnosis_and_the_facts() -> None:
                      "Left stop lamp is dim; the others are bright", "Technician 04 (demo)",
                      "stop_lamps version 1.0.0", "default", "none recorded",
                      "Cut back the corroded ground wire", "drop_left_ground: 12 mV, healthy 4–31 mV",
-                     "airbag", "Session digest (SHA-256):"):
+                     "pedal prop must not slip", "Session digest (SHA-256):"):
         assert expected in text, expected
     # every step is there with its time; the long hashes may wrap, so compare without spaces
     for step in record.steps:
@@ -157,12 +156,17 @@ def test_a_record_edited_in_the_store_says_so_at_the_top() -> None:
 
 
 def test_the_report_carries_the_cautions() -> None:
+    from assistant import cautions
+
     record = load_session()
     content = report_content(record)
-    assert content.cautions[: len(record.cautions)] == record.cautions
-    assert set(GENERAL_CAUTIONS) <= set(content.cautions)
+    assert content.cautions == record.cautions + cautions.EVERY_PAGE
     text = pdf_text(render_report(record, "pdf"))
-    assert "fused current jack" in text and "maker's procedures" in text
+    assert "maker's procedures" in text and "high-voltage cabling" in text
+    # a record that kept no cautions gets them all: which applied can no longer be told
+    bare = record.model_copy(update={"cautions": ()})
+    assert report_content(bare).cautions == cautions.ALL
+    assert "fused current jack" in pdf_text(render_report(bare, "pdf"))
 
 
 def test_write_outputs_writes_the_four_files_with_one_digest(tmp_path: Path) -> None:
@@ -236,8 +240,6 @@ def test_an_unknown_report_format_is_a_clear_error() -> None:
 
 
 STOP_LAMPS = Path(__file__).parent.parent / "rulesets" / "lamp" / "stop_lamps.yaml"
-needs_ruleset_path = pytest.mark.skipif("ruleset_path" not in SessionRecord.model_fields,
-                                        reason="the record has no ruleset_path field yet")
 
 
 def test_ruleset_names_cover_every_test_and_fault() -> None:
@@ -251,11 +253,14 @@ def test_ruleset_names_cover_every_test_and_fault() -> None:
     assert names["drop_left_ground"] == "Voltage drop on the left lamp's ground side"
 
 
-@needs_ruleset_path
 def test_the_report_names_tests_and_faults_from_the_unchanged_ruleset(tmp_path: Path) -> None:
     from assistant.report import session_names
 
-    record = load_session().model_copy(update={"ruleset_path": str(STOP_LAMPS)})
+    from assistant.ruleset import load_ruleset
+
+    # the bundled ruleset moves on; the session is taken to have used it as it is now
+    record = load_session().model_copy(update={"ruleset_path": str(STOP_LAMPS),
+                                               "ruleset_sha256": load_ruleset(STOP_LAMPS).sha256})
     names = session_names(record)
     page = report_html(record, names)
     assert "left lamp ground wire, black: high resistance (98.1 %)" in page
@@ -266,3 +271,23 @@ def test_the_report_names_tests_and_faults_from_the_unchanged_ruleset(tmp_path: 
     changed.write_text(STOP_LAMPS.read_text("utf-8") + "\n# edited\n", encoding="utf-8")
     assert session_names(record.model_copy(update={"ruleset_path": str(changed)})) == {}
     assert session_names(record.model_copy(update={"ruleset_path": str(tmp_path / "no")})) == {}
+
+
+def test_faults_that_no_test_tells_apart_are_named() -> None:
+    record = load_session().model_copy(update={
+        "ambiguity_group": ("w_left_gnd.high_resistance", "lamp_left.high_resistance")})
+    expected = "No test of the ruleset can tell the diagnosis from: lamp_left.high_resistance."
+    assert expected in report_html(record)
+    assert expected in pdf_text(render_report(record, "pdf"))
+
+
+def test_observation_steps_and_the_verification_test_read_plainly() -> None:
+    record = load_session()
+    steps = list(record.steps)
+    steps[11] = steps[11].model_copy(update={"test_id": "look_lamps"})
+    steps[13] = steps[13].model_copy(update={
+        "test_id": "look_lamps", "reading": None, "unit": None, "reading_text": "all_bright",
+        "expected_low": None, "expected_high": None, "verdict": "as expected"})
+    content = report_content(record.model_copy(update={"steps": tuple(steps)}))
+    assert content.steps[11].what == "conclusion; verify with: look_lamps"
+    assert content.verification.startswith("look_lamps: all_bright: as expected (step 13, ")

@@ -105,6 +105,15 @@ def test_undo_takes_back_the_last_answer(tmp_path: Path, store: Store) -> None:
     assert record.diagnosis == "lamp.open"
 
 
+def test_undo_takes_back_a_skip_too(tmp_path: Path, store: Store) -> None:
+    source = Scripted([Skip(), Undo(), Answer("4.0")])
+    record = Session.begin(store, fake_engine(tmp_path), source, session_id="s1").run(source)
+    undo = next(s for s in record.steps if s.kind == "undo")
+    assert record.steps[undo.refers_to].kind == "skip"  # type: ignore[index]
+    assert "took back the skip of t_volts" in source.told
+    assert source.asked[:3] == ["t_volts", "t_look", "t_volts"]
+
+
 def test_undo_with_nothing_to_undo_is_told_not_stored(tmp_path: Path, store: Store) -> None:
     source = Scripted([Undo()])
     record = Session.begin(store, fake_engine(tmp_path), source, session_id="s1").run(source)
@@ -182,7 +191,8 @@ def test_summary_json_shape(tmp_path: Path, store: Store) -> None:
     source = Scripted([Skip(), Answer("yes")])
     record = Session.begin(store, fake_engine(tmp_path), source, session_id="s1").run(source)
     data = summary_json(record)
-    assert set(data) == {"session", "ruleset", "status", "diagnosis", "probability", "steps", "stopped_because"}
+    assert set(data) == {"session", "ruleset", "status", "diagnosis", "probability", "ambiguity_group", "steps",
+                         "stopped_because"}
     assert data["session"] == "s1" and data["ruleset"] == "fake"
     assert data["steps"][0] == {"test": "t_volts", "kind": "skip", "reading": None, "unit": None,
                                 "top": [["gnd.high_resistance", 0.5], ["lamp.open", 0.4], ["none", 0.1]]}

@@ -21,7 +21,7 @@ from __future__ import annotations
 
 from abc import ABC, abstractmethod
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, ClassVar
 
 import numpy as np
@@ -51,6 +51,23 @@ class Env:
     points: Mapping[str, OperatingPoint]  # every energised state, settled
     blown: Mapping[str, np.ndarray]  # fuses blown in any state (they stay blown)
     reference: slice  # the variants of the no-fault hypothesis (for the jack choice)
+    # de-energised set-ups (state, isolate, only) -> every probe pair the ohms tests need there
+    ohms_probes: Mapping[tuple[str, tuple[str, ...], tuple[str, ...]], Sequence[tuple[str, str]]] = field(
+        default_factory=dict)
+    _deenergised: dict[tuple[str, tuple[str, ...], tuple[str, ...]], OperatingPoint] = field(
+        default_factory=dict, repr=False)
+
+    def deenergised(self, setup: tuple[str, tuple[str, ...], tuple[str, ...]],
+                    probes: Sequence[tuple[str, str]]) -> OperatingPoint:
+        """The de-energised circuit of one set-up, solved once for all its ohms tests."""
+        point = self._deenergised.get(setup)
+        if point is None:
+            state, isolate, only = setup
+            wanted = tuple(self.ohms_probes.get(setup, ())) or tuple(probes)
+            point = operate(self.model, self.batch, state, energised=False, blown=self.blown, probes=wanted,
+                            isolate=isolate, only=only)
+            self._deenergised[setup] = point
+        return point
 
 
 def voltmeter(point: OperatingPoint, a: str, b: str, input_ohms: float) -> np.ndarray:
@@ -129,13 +146,17 @@ class ResistanceMeasurement(Measurement):
     def points(self) -> tuple[str, ...]:
         return tuple(self.test.between)
 
+    def setup(self) -> tuple[str, tuple[str, ...], tuple[str, ...]]:
+        """What the circuit is for this test: its state, the parts out, the parts alone."""
+        return (self.state, tuple(sorted(self.test.isolate)), tuple(sorted(self.test.only)))
+
     def display(self, env: Env) -> Display:
         a, b = self.points()
-        point = operate(self.model, env.batch, self.state, energised=False, blown=env.blown, probes=[(a, b)],
-                        isolate=self.test.isolate, only=self.test.only)
+        point = env.deenergised(self.setup(), [(a, b)])
         sol, net = point.solution, point.built.net
         ia, ib = net.index(a), net.index(b)
-        ohms = np.maximum(sol.response[:, ia, 0] - sol.response[:, ib, 0], 0.0)
+        k = point.probe(a, b)
+        ohms = np.maximum(sol.response[:, ia, k] - sol.response[:, ib, k], 0.0)
         ohms = np.where(sol.island[:, ia] == sol.island[:, ib], ohms + env.meter.ohms.lead_resistance, np.inf)
         return show(ohms, ohms_scales(env.meter), env.meter.ohms.accuracy)
 

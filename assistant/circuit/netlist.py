@@ -168,8 +168,10 @@ class CircuitModel:
         isolate: Iterable[str] = (),
         only: Iterable[str] = (),
         shunt: Shunt | None = None,
+        keep_nodes: Iterable[str] = (),
     ) -> Built:
-        """The netlist of a batch in one operating state."""
+        """The netlist of a batch in one operating state (``keep_nodes``: nodes probes will name)."""
+        keep_nodes = frozenset(keep_nodes)
         only_set = frozenset(only)
         parts = [p for p in self.parts if not only_set or p.id in only_set]
         ctx = StampContext(
@@ -183,7 +185,11 @@ class CircuitModel:
             out_of_holder=only_set,
             batch=batch.size,
         )
-        builder = _Builder(list(self.nodes), batch.size, shunt, part_nodes={p.id: p.nodes for p in self.parts})
+        nodes = list(self.nodes)
+        if only_set:  # on the bench: only the parts' own nodes (and any the probes name)
+            nodes = [n for n in self.nodes if n == self.ruleset.ground or n in keep_nodes
+                     or any(n in p.nodes for p in parts)]
+        builder = _Builder(nodes, batch.size, shunt, part_nodes={p.id: p.nodes for p in self.parts})
         for part in parts:
             part.stamp(batch.values[part.id], ctx, builder)
         if not only_set:  # a part measured on the bench has no harness to be shorted to

@@ -96,7 +96,8 @@ def operate(
     for _ in range(MAX_ROUNDS):
         contacts = {c.id: pulled[c.id] ^ c.normally_closed for c in model.contacts}
         built = model.netlist(batch, state, energised=energised, contact_closed=contacts, blown=blown_now,
-                              stalled=stalled, isolate=isolate, only=only, shunt=shunt)
+                              stalled=stalled, isolate=isolate, only=only, shunt=shunt,
+                              keep_nodes={n for pair in probes for n in pair})
         if todo.any():
             idx = [(built.net.index(a), built.net.index(b)) for a, b in probes]
             solution = _solve_some(built.net, idx, todo, solution)

@@ -26,7 +26,7 @@ from typing import Any
 
 from pydantic import ValidationError
 from ruamel.yaml import YAML
-from ruamel.yaml.comments import CommentedMap, CommentedSeq, TaggedScalar
+from ruamel.yaml.comments import CommentedMap, CommentedOrderedMap, CommentedSeq, TaggedScalar
 from ruamel.yaml.error import MarkedYAMLError, YAMLError
 
 from assistant.errors import Problem, RulesetError
@@ -166,7 +166,7 @@ def read_text(path: Path, error: type[RulesetError] = RulesetError) -> tuple[byt
     except OSError as exc:
         raise error(f"cannot be read: {exc.strerror or exc}", file=name) from exc
     if len(data) > MAX_FILE_BYTES:
-        raise error(f"is {len(data) // 1024} KB; a ruleset file is at most {MAX_FILE_BYTES // 1024} KB",
+        raise error(f"is {len(data) // 1024} KB; ohmtrail reads files of at most {MAX_FILE_BYTES // 1024} KB here",
                     file=name, line=1, column=1)
     if b"\x00" in data:
         raise error("is a binary file, not YAML text", file=name, line=1, column=1)
@@ -288,6 +288,8 @@ class _Plain:
             shown = str(tag).replace("tag:yaml.org,2002:", "!!")[:80]
             raise self.fail(f"YAML tag '{shown}' is not allowed in a ruleset (a ruleset is data: "
                             "mappings, lists, text, numbers)", path)
+        if isinstance(node, CommentedOrderedMap):
+            raise self.fail("an ordered map (!!omap) is not allowed in a ruleset; write a plain mapping", path)
         if isinstance(node, CommentedMap):
             out: dict[str, Any] = {}
             for key, value in node.items():
@@ -310,7 +312,8 @@ class _Plain:
             return self.text(str(node), path)
         if isinstance(node, (_dt.date, _dt.datetime)):
             raise self.fail("a date is not expected here; quote it if it is text", path, str(node))
-        kinds = {"bytes": "binary data (!!binary)", "CommentedSet": "a set (!!set)"}
+        kinds = {"bytes": "binary data (!!binary)", "CommentedSet": "a set (!!set)",
+                 "list": "a list of pairs (!!pairs)"}
         kind = kinds.get(type(node).__name__, f"a YAML value of kind {type(node).__name__}")
         raise self.fail(f"{kind} is not allowed in a ruleset", path)
 
