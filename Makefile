@@ -38,8 +38,23 @@ postgres-stop:
 fuzz: $(STAMP)
 	@for f in benchmarks/fuzz_*.py; do echo "== $$f"; $(BIN)/python $$f || exit 1; done
 
+# The demo: a simulated session on the stop lamps of fleet van CV2-07 (an invented Larkspur CV-2
+# courier van whose left stop lamp is dim), printed as the technician sees it; then its trail,
+# claim reports and sealed export, all under demo-out/.
+DEMO_ID := cv2-07-left-dim
+DEMO_DB := sqlite:///demo-out/sessions.db
+
 demo: $(STAMP) tools
 	$(BIN)/ohmtrail lint rulesets/
+	@mkdir -p demo-out && rm -f demo-out/sessions.db demo-out/sessions.db-wal demo-out/sessions.db-shm
+	$(BIN)/ohmtrail diagnose rulesets/lamp/stop_lamps.yaml --simulate lamp_left.high_resistance --seed 7 \
+		--context docs/examples/courier-van-left-dim.yaml --id $(DEMO_ID) --db $(DEMO_DB)
+	$(BIN)/ohmtrail trail $(DEMO_ID) --db $(DEMO_DB) -o demo-out/$(DEMO_ID)-trail.svg
+	$(BIN)/ohmtrail report $(DEMO_ID) --db $(DEMO_DB) -o demo-out/$(DEMO_ID)-report.pdf
+	$(BIN)/ohmtrail report $(DEMO_ID) --db $(DEMO_DB) --format html -o demo-out/$(DEMO_ID)-report.html
+	$(BIN)/ohmtrail export $(DEMO_ID) --db $(DEMO_DB) -o demo-out/$(DEMO_ID)-export.json
+	$(BIN)/ohmtrail verify demo-out/$(DEMO_ID)-export.json
+	@echo "Demo files in demo-out/: sessions.db (the session store), the trail (SVG), the claim report (PDF, HTML), the sealed export (JSON)"
 
 lint: $(STAMP)
 	$(BIN)/ohmtrail lint rulesets/

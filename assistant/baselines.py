@@ -100,7 +100,8 @@ def noise_free_outcomes(model: EvidenceModel) -> np.ndarray:
 
 
 def voltage_path(ruleset: Ruleset, table: PredictionTable) -> list[int]:
-    """Voltage tests in order of distance from the supply (nearest first), by hops in the netlist."""
+    """Voltage tests in order of distance from the supply (nearest first), by hops in the netlist;
+    one per test point, in the operating state most of them use."""
     start = ruleset.power
     if start is None:
         battery = next((comp for comp in ruleset.components if comp.type == "battery"), None)
@@ -121,14 +122,20 @@ def voltage_path(ruleset: Ruleset, table: PredictionTable) -> list[int]:
                 if nxt not in distance and nxt != ruleset.ground:
                     distance[nxt] = distance[node] + 1
                     queue.append(nxt)
+    voltage = [t for t in ruleset.tests if isinstance(t, VoltageTest) and t.reference in (None, ruleset.ground)]
+    states = [t.state for t in voltage]
+    working = max(set(states), key=states.count) if states else None  # the state the walk is made in
+    chosen: dict[str, VoltageTest] = {}
+    for test in voltage:  # one test per point, in the working state where there is a choice
+        if test.at not in chosen or (test.state == working and chosen[test.at].state != working):
+            chosen[test.at] = test
     points = []
-    for test in ruleset.tests:
-        if isinstance(test, VoltageTest) and test.reference in (None, ruleset.ground):
-            try:
-                index = table.test_index(test.id)
-            except KeyError:
-                continue
-            points.append((distance.get(test.at, 10**6), index))
+    for test in chosen.values():
+        try:
+            index = table.test_index(test.id)
+        except KeyError:
+            continue
+        points.append((distance.get(test.at, 10**6), index))
     points.sort()
     return [index for _, index in points]
 

@@ -320,6 +320,8 @@ def _cmd_check(args: argparse.Namespace) -> int:
             print(f"      asked: {', '.join(r.asked) or 'nothing'}")
     for path in report.without_cases:
         print(f"note: {path} has no cases")
+    if report.files == 0:
+        raise OhmtrailError(f"no ruleset files (*.yaml) under {', '.join(args.paths)}")
     failed = sum(not r.passed for r in report.results)
     rulesets = report.files
     line = (f"{len(report.results)} case{'s' if len(report.results) != 1 else ''} in {rulesets} "

@@ -29,6 +29,7 @@ import numpy as np
 from assistant.beliefs import EvidenceModel, build_model, normalise_log
 from assistant.errors import Problem, RulesEngineError, SessionError
 from assistant.planner import (
+    Choice,
     PlannerSettings,
     RepairStep,
     Why,
@@ -452,8 +453,6 @@ class Diagnosis:
 
     def _proposal(self, t: int, rule_id: str | None, p: np.ndarray | None = None,
                   remeasure: bool = False) -> Proposal:
-        from assistant.planner import Choice
-
         core = self._core
         probs = self._posterior if p is None else p
         gain = expected_gain(probs, core.model.tests[t])

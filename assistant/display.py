@@ -132,11 +132,6 @@ def complaint_text(record: SessionRecord) -> str:
     return words or given
 
 
-def format_suspects(top: tuple[tuple[str, float], ...], count: int = 3) -> str:
-    """The leading suspects as one line: ``"a 93.0 % · b 5.0 %"``."""
-    return " · ".join(f"{clean_text(h)} {format_probability(p)}" for h, p in top[:count])
-
-
 def ruleset_names(ruleset: Ruleset) -> dict[str, str]:
     """What to call a ruleset's tests and faults: test titles, "component label: fault mode"."""
     names: dict[str, str] = {"none": "no fault"}

@@ -53,7 +53,7 @@ class TestPage:
 class Question:
     """What the session puts to its reading source: the proposal, its test and its page."""
 
-    proposal: Proposal
+    proposal: Proposal | None  # None for the verification test at the stop
     test: TestInfo
     page: TestPage
     ranking: tuple[tuple[str, float], ...]
@@ -144,17 +144,21 @@ class PageMaker:
                         ranking=tuple(diagnosis.ranking()), why=why_text(proposal),
                         answered=answered, test_ids=tuple(self._specs))
 
+    def test_question(self, test_id: str, ranking: tuple[tuple[str, float], ...] = (),
+                      extra_cautions: Iterable[str] = ()) -> Question:
+        """A question for one test that no proposal asked for (the verification test)."""
+        return Question(proposal=None, test=self._infos[test_id], page=self.page(test_id, extra_cautions),
+                        ranking=ranking, why="the test that proves the repair", answered=0,
+                        test_ids=tuple(self._specs))
+
     def closing(self, conclusion: Conclusion, diagnosis: Diagnosis) -> ClosingPage:
         """The page at the stop."""
         label = self.hypothesis_label(conclusion.diagnosis) if conclusion.diagnosis else "no single fault"
         first = conclusion.repairs[0] if conclusion.repairs else None
         verification = None
         if conclusion.verification_test and conclusion.verification_test in self._specs:
-            test_id = conclusion.verification_test
-            page = self.page(test_id, tuple(getattr(diagnosis, "cautions", ())))
-            verification = Question(proposal=None, test=self._infos[test_id], page=page,  # type: ignore[arg-type]
-                                    ranking=tuple(conclusion.ranking), why="proves the repair",
-                                    answered=0, test_ids=tuple(self._specs))
+            verification = self.test_question(conclusion.verification_test, tuple(conclusion.ranking),
+                                              tuple(getattr(diagnosis, "cautions", ())))
         repaired: tuple[str, ...] = ()
         if first is not None:
             fault = getattr(first, "fault_id", None)

@@ -99,7 +99,7 @@ class PredictionTable:
 ENGINE_VERSION = "1"  # bump when the table's meaning changes; the engine's own source is hashed as well
 log = logging.getLogger("ohmtrail.predict")
 QUANTILES = (0.05, 0.5, 0.95)
-GROUP_NODE_VARIANTS = 2e6  # variants × nodes solved at once; bounds memory on large harnesses
+GROUP_NODE_VARIANTS = 2e7  # variants × nodes × right-hand sides at once (160 MB); bounds memory
 
 
 def hypotheses_of(ruleset: Ruleset, pairs: Sequence[tuple[str, str]] = ()
@@ -202,7 +202,8 @@ def compute_table(loaded: LoadedRuleset, meter: MeterProfile, *, samples: int = 
     out_samples, out_sigma, out_res = np.full(shape, np.nan), np.full(shape, np.nan), np.full(shape, np.nan)
     # large circuits go in groups of hypotheses, each led by "none" (the jack choice and the
     # lead placement of current tests are taken from the no-fault circuit)
-    per_group = max(1, int(GROUP_NODE_VARIANTS // (S * len(model.nodes))))
+    columns = 1 + max((len(v) for v in probes.values()), default=0)
+    per_group = max(1, int(GROUP_NODE_VARIANTS // (S * len(model.nodes) * columns)))
     for lo in range(1, max(H, 2), per_group):
         rows = [0] + list(range(lo, min(H, lo + per_group)))
         group = [members[h] for h in rows]

@@ -30,7 +30,6 @@ from assistant.display import (
     format_reading,
     format_stamp,
     format_stamp_short,
-    format_suspects,
     ruleset_names,
 )
 from assistant.errors import IntegrityError, OhmtrailError, OutputError
@@ -105,13 +104,15 @@ def _vehicle_facts(record: SessionRecord) -> list[tuple[str, str]]:
 
 def _step_row(step: Step, names: Mapping[str, str], undone: set[int]) -> StepRow:
     what = _KIND_WORDS.get(step.kind, step.kind)
-    if step.test_id:
+    if step.test_id and step.kind == "conclusion":  # the test that is to prove the repair
+        what = f"{what}; verify with: {_name(step.test_id, names)}"
+    elif step.test_id:
         what = f"{what}: {_name(step.test_id, names)}"
     if step.kind == "undo" and step.refers_to is not None:
         what = f"{what}: step {step.refers_to}"
     if step.rules_fired:
         what = f"{what}: {', '.join(clean_text(r) for r in step.rules_fired)}"
-    leading = format_suspects(tuple((_name(h, names), p) for h, p in step.top), 2)
+    leading = "\n".join(f"{_name(h, names)} {format_probability(p)}" for h, p in step.top[:2])
     return StepRow(str(step.index), format_stamp_short(step.at), what, clean_text(step.note or ""),
                    format_reading(step),
                    format_range(step.expected_low, step.expected_high, step.unit),
@@ -164,10 +165,11 @@ def report_content(record: SessionRecord, names: Mapping[str, str] | None = None
     verification = clean_text(record.verification or "")
     if verification_steps:
         last = verification_steps[-1]
-        verification = (f"{_name(last.test_id, names)}: {format_reading(last)}, healthy "
-                        f"{format_range(last.expected_low, last.expected_high, last.unit)}: "
-                        f"{clean_text(last.verdict or 'no verdict')} "
-                        f"(step {last.index}, {format_stamp(last.at)})")
+        healthy = format_range(last.expected_low, last.expected_high, last.unit)
+        verification = (f"{_name(last.test_id, names)}: {format_reading(last)}"
+                        + (f", healthy {healthy}" if healthy else "")
+                        + f": {clean_text(last.verdict or 'no verdict')}"
+                        f" (step {last.index}, {format_stamp(last.at)})")
     return ReportContent(
         title=f"Electrical fault diagnosis report: session {clean_text(record.id)}",
         in_progress=in_progress, status_line=status,

@@ -27,7 +27,7 @@ from assistant.errors import OhmtrailError, ReadingError, SessionError
 from assistant.export import step_digest
 from assistant.page import PageMaker, Question, verdict
 from assistant.reading import Reading, parse_reading
-from assistant.record import SessionRecord, Step, VehicleInfo
+from assistant.record import SessionRecord, Step
 from assistant.sources import Answer, Intake, Note, Quit, ReadingSource, Remeasure, Skip, Undo
 
 if TYPE_CHECKING:
@@ -146,6 +146,7 @@ class Session:
         session._write_start(source)
         for text in intake.notes:
             session._write("note", note=text)
+            source.tell(f"note: {text}")
         log.info("session %s started on %s", record.id, ruleset.id)
         return session
 
@@ -435,16 +436,3 @@ def session_json(record: SessionRecord) -> dict[str, Any]:
             "diagnosis": record.diagnosis, "probability": record.probability,
             "ambiguity_group": list(record.ambiguity_group), "steps": steps}
 
-
-def vehicle_text(vehicle: VehicleInfo) -> str:
-    """The vehicle in a few words for lists and headers."""
-    parts = []
-    if vehicle.fleet_number:
-        parts.append(f"fleet {vehicle.fleet_number}")
-    if vehicle.vin:
-        parts.append(f"VIN {vehicle.vin}")
-    if vehicle.model_year:
-        parts.append(str(vehicle.model_year))
-    if vehicle.odometer_km is not None:
-        parts.append(f"{vehicle.odometer_km:,.0f} km")
-    return ", ".join(parts)

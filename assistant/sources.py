@@ -23,6 +23,7 @@ from typing import TYPE_CHECKING, Any, Protocol, Union
 import numpy as np
 from pydantic import ValidationError
 
+from assistant.display import format_quantity
 from assistant.errors import AnswersFileError, ReadingError, RulesetError, SessionError
 from assistant.reading import Reading, parse_reading
 from assistant.record import VehicleInfo
@@ -288,8 +289,10 @@ class SimulatedSource:
                                sample=self.sample if sample is None else sample)
         if reading.value is None:
             return reading
-        # Quantised to the display (0.0272, not 0.027200000000000002), as the meter shows it.
-        return Reading(text=reading.text, value=float(f"{reading.value:.12g}"))
+        # As the meter shows it: 25.3 mV, and 0.0253 rather than the float 0.025300000000000003.
+        value = float(f"{reading.value:.12g}")
+        return Reading(text=format_quantity(value, self.table.tests[self.table.test_index(test_id)].unit),
+                       value=value)
 
     def ask(self, question: Question) -> Action:
         return Answer(reading=self._draw(self.hypothesis, question.test.id))

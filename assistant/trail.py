@@ -218,6 +218,10 @@ def _conclusion_rows(step: Step, record: SessionRecord, names: Mapping[str, str]
     if why:
         rows.append(_cell('<FONT POINT-SIZE="9">stopped: ' + html_text(why, MAIN_WIDTH - 9)
                           + "</FONT>", colspan=3))
+    if step.test_id:
+        rows.append(_cell('<FONT POINT-SIZE="9">verify with: '
+                          + html_text(_name(step.test_id, names), MAIN_WIDTH - 13) + "</FONT>",
+                          colspan=3))
     others = record.alternatives or (ranking[1:] if ranking else ())
     if others:
         parts = "\n".join(f"{_name(h, names)}\xa0{_nbsp(format_probability(p))}"

@@ -1,6 +1,6 @@
 """How the cost grows with circuit size: synthetic harnesses of 20, 100 and 400 nodes.
 
-For each size: one batched solve of 256 variants (the cost per operating point), and a whole
+For each size: one batched solve of 1024 variants (the cost per operating point), and a whole
 prediction table (every fault × every test) at a modest sample count. Prints figures; asserts
 nothing. Run: python benchmarks/bench_scaling.py
 """
@@ -29,7 +29,7 @@ def main() -> None:
         ruleset = loaded.ruleset
         model = CircuitModel(ruleset)
         _, members = hypotheses_of(ruleset)
-        batch = model.batch(members[:16], 16)
+        batch = model.batch(members[:64], 16)
         net = model.netlist(batch, model.states[0]).net
         runs = []
         for _ in range(3):
@@ -44,7 +44,7 @@ def main() -> None:
         H = len(table.hypotheses)
         print(f"{len(model.nodes):>6}{len(ruleset.components):>7}{H - 1:>8}{per_variant * 1e6:>13.1f}us"
               f"{samples:>9}{H * samples:>10}{whole:>9.2f}s")
-    print("solve/variant: one batched solve of 256 variants (16 hypotheses x 16 samples) / 256;")
+    print("solve/variant: one batched solve of 1024 variants (64 hypotheses x 16 samples) / 1024;")
     print("table: compute_table for every fault and test (no cache), variants = hypotheses x samples.")
 
 

@@ -90,8 +90,8 @@ def _stop_lamp_table():  # type: ignore[no-untyped-def]
 def test_voltage_path_runs_from_the_supply_outward() -> None:
     table = _stop_lamp_table()
     ids = [table.tests[t].id for t in voltage_path(STOP_LAMPS.ruleset, table)]
-    assert ids[:3] == ["v_fuse", "v_switch_out", "v_splice"]
-    assert set(ids[3:]) == {"v_left_feed", "v_right_feed", "v_high_feed"}
+    assert ids[:4] == ["v_fuse", "v_switch_in", "v_switch_out", "v_splice"]  # pedal pressed at SW_OUT
+    assert set(ids[4:]) == {"v_left_feed", "v_right_feed", "v_high_feed"}
 
 
 def _reader(table, good_upto: int, path: list[int]):  # type: ignore[no-untyped-def]
@@ -103,9 +103,9 @@ def _reader(table, good_upto: int, path: list[int]):  # type: ignore[no-untyped-
 def test_linear_walk_stops_at_the_first_good_point_from_the_far_end() -> None:
     table = _stop_lamp_table()
     path = voltage_path(STOP_LAMPS.ruleset, table)
-    walk = linear_walk(table, path, _reader(table, 2, path))  # good up to the splice
+    walk = linear_walk(table, path, _reader(table, 3, path))  # good up to the splice
     assert [table.tests[t].id for t in walk.tests][-1] == "v_splice"
-    assert len(walk.tests) == len(path) - 2
+    assert len(walk.tests) == len(path) - 3
     assert walk.minutes == sum(table.tests[t].cost_minutes for t in walk.tests)
 
 

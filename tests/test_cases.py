@@ -107,3 +107,8 @@ def test_rulesets_that_cannot_run_are_problems_not_tracebacks(lamp: Path, tmp_pa
     assert "cannot have fault mode" in err or "unknown fault 'lamp.seized'" in err
     assert "missing.yaml: no such file" in err
     assert "2 ruleset problems" in err
+
+
+def test_a_folder_without_rulesets_is_an_error(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["check", str(tmp_path)]) == 1
+    assert capsys.readouterr().err == f"ohmtrail: no ruleset files (*.yaml) under {tmp_path}\n"

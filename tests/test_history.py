@@ -6,6 +6,8 @@ import datetime as dt
 from pathlib import Path
 
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from assistant.errors import HistoryError
 from assistant.history import HEADER, read_history, repairs_from_sessions
@@ -116,3 +118,20 @@ def test_closed_sessions_are_read_from_the_store(tmp_path: Path) -> None:
             db.create(record)
     (repair,) = repairs_from_store(url)
     assert repair.fault_id == "g_rear.high_resistance" and repair.vehicle == "CV2-044"
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(data=st.one_of(
+    st.binary(max_size=300),
+    st.text(alphabet=st.sampled_from(list("date,vehicle,ruleset,fault\n\"-0129 .x\r")), max_size=300)
+    .map(lambda t: (HEADER + "\n" + t).encode("utf-8")),
+))
+def test_any_bytes_give_repairs_or_a_located_history_error(tmp_path: Path, data: bytes) -> None:
+    # a file of any content is read or refused with a HistoryError at a row, never another exception
+    path = _csv(tmp_path, data)
+    try:
+        repairs = read_history(path, KNOWN)
+    except HistoryError as err:
+        assert err.file == str(path) and (err.line is None or err.line >= 1)
+    else:
+        assert all(r.ruleset_id in KNOWN and r.vehicle for r in repairs)

@@ -180,7 +180,7 @@ def test_default_samples_keep_the_meter_default(loaded) -> None:  # type: ignore
 def test_hypotheses_in_groups_give_the_same_table(loaded, monkeypatch: pytest.MonkeyPatch) -> None:  # type: ignore[no-untyped-def]
     # large harnesses are solved a few hypotheses at a time; the table must not depend on it
     whole = predict_module.compute_table(loaded, default_meter(), samples=4)
-    monkeypatch.setattr(predict_module, "GROUP_NODE_VARIANTS", 4 * 15 * 3)
+    monkeypatch.setattr(predict_module, "GROUP_NODE_VARIANTS", 4 * 15 * 3 * 10)
     grouped = predict_module.compute_table(loaded, default_meter(), samples=4)
     assert np.array_equal(whole.samples, grouped.samples, equal_nan=True)
     assert np.array_equal(whole.sigma, grouped.sigma, equal_nan=True)

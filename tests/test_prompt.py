@@ -18,6 +18,7 @@ from assistant.prompt import PromptSource, completer_for
 from assistant.record import SessionRecord
 from assistant.session import Engine, Session
 from assistant.store import Store, open_store
+from tests.conftest import STOP_LAMPS
 from tests.fake_engine import FakeProposal, fake_engine
 
 INTAKE = "VIN123\nCV2-07\n112000 mi\n2021\nT. Tester\n1\nB1234 U0100\n"
@@ -185,3 +186,59 @@ def test_toolbar_shows_three_leading_suspects(tmp_path: Path) -> None:
         source = PromptSource(engine.loaded.ruleset, input=pipe, output=DummyOutput(), write=lambda t: None)
         source.ask(question)
         assert source.toolbar().startswith(" Suspects: gnd.high_resistance 50%  lamp.open 40%  none 10%")
+
+
+# --------------------------------------------------------------------------- on the real engine
+
+
+@pytest.fixture(scope="module")
+def stop_lamps_engine() -> Engine:
+    from assistant.ruleset.load import load_ruleset
+
+    return Engine.build(load_ruleset(STOP_LAMPS))
+
+
+def test_the_real_engine_at_the_prompt(stop_lamps_engine: Engine, store: Store) -> None:
+    # Intake: five empty fields, complaint 3 (left_dim), no fault codes; then the first test.
+    typed = "\n" * 5 + "3\n\n" + "why\nsuspects\nleft_dim\nquit\n"
+    record, shown = run(stop_lamps_engine, store, typed)
+    text = "\n".join(shown)
+    first = next(s for s in record.steps if s.kind == "reading")
+    assert (first.test_id, first.reading_text) == ("look_lamps", "left_dim"), "the planner's first test changed"
+    assert "look_lamps: " in text and " bits for 1 min" in text  # why: the planner's numbers
+    assert "separates " in text
+    assert "lamp_left.high_resistance" in text  # the suspects table
+    assert "Answer: all_bright / all_dim" in text and "! Follow the vehicle maker's procedures" in text
+    assert record.complaint == "left_dim" and record.status == "open"
+    assert first.verdict == "not as expected" and first.top[0][0] == "lamp_left.high_resistance"
+
+
+def test_choose_ruleset_by_family(monkeypatch: pytest.MonkeyPatch, tmp_path: Path) -> None:
+    from assistant.catalogue import catalogue
+    from assistant.prompt import choose_ruleset
+
+    shop = tmp_path / "shop"
+    shop.mkdir()
+    (shop / "cv2_stop.yaml").write_text(STOP_LAMPS.read_text(encoding="utf-8").replace(
+        "id: stop_lamps", "id: cv2_stop_lamps", 1), encoding="utf-8")
+    (shop / "broken.yaml").write_text("format: 1\nid: [\n", encoding="utf-8")  # left out, with a warning
+    monkeypatch.setenv("OHMTRAIL_RULESETS", str(shop))
+    monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path / "config"))
+    entries = catalogue()
+    assert [e.family for e in entries] == sorted(e.family for e in entries)
+    assert {"cv2_stop_lamps", "stop_lamps", "starter"} <= {e.id for e in entries}
+    shown: list[str] = []
+    with create_pipe_input() as pipe:
+        pipe.send_text("99\nnope\ncv2_stop_lamps\n")
+        pipe.close()
+        chosen = choose_ruleset(entries, input=pipe, output=DummyOutput(), write=shown.append)
+    assert chosen.id == "cv2_stop_lamps" and chosen.origin == "configured"
+    assert "lamp" in shown and any("[cv2_stop_lamps 1.0.0] (shop)" in line for line in shown)
+    assert sum("not taken:" in line for line in shown) == 2
+    with create_pipe_input() as pipe:
+        pipe.send_text("2\n")
+        pipe.close()
+        assert choose_ruleset(entries, input=pipe, output=DummyOutput(), write=shown.append) == entries[1]
+    with create_pipe_input() as pipe, pytest.raises(SessionError, match="no ruleset chosen"):
+        pipe.send_text(CTRL_D)
+        choose_ruleset(entries, input=pipe, output=DummyOutput(), write=shown.append)

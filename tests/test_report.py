@@ -279,3 +279,15 @@ def test_faults_that_no_test_tells_apart_are_named() -> None:
     expected = "No test of the ruleset can tell the diagnosis from: lamp_left.high_resistance."
     assert expected in report_html(record)
     assert expected in pdf_text(render_report(record, "pdf"))
+
+
+def test_observation_steps_and_the_verification_test_read_plainly() -> None:
+    record = load_session()
+    steps = list(record.steps)
+    steps[11] = steps[11].model_copy(update={"test_id": "look_lamps"})
+    steps[13] = steps[13].model_copy(update={
+        "test_id": "look_lamps", "reading": None, "unit": None, "reading_text": "all_bright",
+        "expected_low": None, "expected_high": None, "verdict": "as expected"})
+    content = report_content(record.model_copy(update={"steps": tuple(steps)}))
+    assert content.steps[11].what == "conclusion; verify with: look_lamps"
+    assert content.verification.startswith("look_lamps: all_bright: as expected (step 13, ")

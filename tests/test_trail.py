@@ -195,3 +195,11 @@ def test_a_conclusion_without_a_certain_fault_says_so() -> None:
     source = dot_source(record)
     assert "no fault certain enough</B>; most likely w_left_gnd.high_resistance" in source
     assert "<B>abandoned</B> before a conclusion" in source
+
+
+def test_the_conclusion_names_the_test_that_is_to_prove_the_repair() -> None:
+    record = load_session()
+    steps = list(record.steps)
+    steps[11] = steps[11].model_copy(update={"test_id": "drop_left_ground"})
+    source = dot_source(record.model_copy(update={"steps": tuple(steps)}))
+    assert "verify with: drop_left_ground" in source

@@ -3,8 +3,10 @@
 The method is modified nodal analysis (Ho, Ruehli & Brennan, IEEE Trans. Circuits and
 Systems, 1975). A *batch* is B variants of the same netlist (fault hypotheses × tolerance
 samples): every element holds one value per variant, and an element can be absent in some
-variants (an open is a removed element, not a large resistance). All B systems are built as one
-stacked array and solved by one call into LAPACK.
+variants (an open is a removed element, not a large resistance). All B systems share one
+sparsity pattern; small ones are solved as one stacked array by LAPACK, larger ones by one
+sparse elimination plan carried out for all variants at once (``elimination.py``), with a
+pivoting LU for any variant it hands back.
 
 The primitives are deliberately few; every component type reduces to them (see
 ``components.py``):
@@ -29,6 +31,7 @@ from typing import Any
 
 import numpy as np
 
+from assistant.circuit.elimination import Elimination
 from assistant.errors import CircuitError
 
 GROUND = 0  # node index of the reference
@@ -158,17 +161,24 @@ def solve(net: Netlist, probes: Sequence[tuple[int, int]] = ()) -> Solution:
         z[hv, hi - 1, :] = 0.0
 
     x = np.empty_like(z)
-    sparse = N > SPARSE_ABOVE
-    step = max(1, int(CHUNK_ENTRIES // (N * (N if not sparse else 1))))
+    plan = _plan(pattern, n - 1) if N > DENSE_UP_TO else None
+    width = plan.filled if plan is not None else N * N
+    step = max(1, int(CHUNK_ENTRIES // (width + N * (1 + K))))
     for lo in range(0, B, step):
         hi_ = min(B, lo + step)
-        try:
-            x[lo:hi_] = (pattern.solve_sparse if sparse else pattern.solve_dense)(data[lo:hi_], z[lo:hi_])
-        except (np.linalg.LinAlgError, RuntimeError) as exc:
-            bad = lo + pattern.singular_variant(data[lo:hi_])
-            names = _owners_near(net, pattern.dense(data[bad]), bad)
-            raise CircuitError("the circuit cannot be solved (its equations are singular) around: "
-                               + ", ".join(names), components=names) from exc
+        redo = np.ones(hi_ - lo, dtype=bool)
+        if plan is not None:
+            x[lo:hi_], redo = plan.solve(data[lo:hi_], z[lo:hi_])
+        if redo.any():  # small circuits, or a doubtful pivot: a pivoting LU for those variants
+            which = np.nonzero(redo)[0] + lo
+            solver = pattern.solve_sparse if N > SPARSE_ABOVE else pattern.solve_dense
+            try:
+                x[which] = solver(data[which], z[which])
+            except (np.linalg.LinAlgError, RuntimeError) as exc:
+                bad = int(which[pattern.singular_variant(data[which])])
+                names = _owners_near(net, pattern.dense(data[bad]), bad)
+                raise CircuitError("the circuit cannot be solved (its equations are singular) around: "
+                                   + ", ".join(names), components=names) from exc
     finite = np.isfinite(x).all(axis=(1, 2))
     if not finite.all():
         bad = int(np.argmin(finite))
@@ -187,7 +197,20 @@ def solve(net: Netlist, probes: Sequence[tuple[int, int]] = ()) -> Solution:
     return Solution(volts, island, currents, response)
 
 
-SPARSE_ABOVE = 150  # unknowns above which each variant is factorised sparse, one by one
+DENSE_UP_TO = 40  # unknowns up to which the stacked dense LAPACK solve is the faster
+SPARSE_ABOVE = 150  # fallback: unknowns above which a variant is factorised sparse, one by one
+_PLANS: dict[bytes, Elimination] = {}
+
+
+def _plan(pattern: _Pattern, last: int) -> Elimination:
+    """The elimination plan of a pattern (node rows before ``last``), planned once and kept."""
+    key = np.concatenate([[pattern.size, last], pattern.rows, pattern.cols]).astype(np.int64).tobytes()
+    plan = _PLANS.get(key)
+    if plan is None:
+        if len(_PLANS) > 64:
+            _PLANS.clear()
+        plan = _PLANS[key] = Elimination(pattern.size, pattern.rows, pattern.cols, last)
+    return plan
 CHUNK_ENTRIES = 2e6  # matrix entries held at once (16 MB of float64)
 DENSE_MAP_ENTRIES = 2e6  # stamp maps up to this size are plain arrays
 
@@ -339,13 +362,7 @@ def _islands(net: Netlist) -> np.ndarray:
     labels = np.zeros((len(firsts), n), dtype=int)
     for p, v in enumerate(firsts):
         on = active[v]
-        if n > 200:
-            from scipy.sparse import coo_matrix
-            
-            graph = coo_matrix((np.ones(int(on.sum())), (a[on], b[on])), shape=(n, n))
-            lab = connected_components(graph, directed=False)[1]
-        else:
-            lab = _union_find(n, a[on], b[on])
+        lab = _union_find(n, a[on], b[on])
         # relabel: ground's island 0, the others 1.. in order of their first node
         order: dict[int, int] = {int(lab[GROUND]): 0}
         labels[p] = [order.setdefault(int(x), len(order)) for x in lab]
@@ -374,12 +391,11 @@ def _island_heads(island: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     floating = island > 0
     if not floating.any():
         return np.zeros(0, dtype=int), np.zeros(0, dtype=int)
-    # a node is the head of its island when no lower node carries the same label
-    first = np.zeros_like(floating)
-    for i in range(1, n):
-        same_before = (island[:, :i] == island[:, i : i + 1]).any(axis=1)
-        first[:, i] = floating[:, i] & ~same_before
-    return np.nonzero(first)
+    # labels are numbered in order of their first node, so a node heads its island exactly when
+    # its label exceeds every label before it
+    before = np.zeros_like(island)
+    before[:, 1:] = np.maximum.accumulate(island[:, :-1], axis=1)
+    return np.nonzero(floating & (island > before))
 
 
 def _check_zero_ohm_loops(net: Netlist) -> None:

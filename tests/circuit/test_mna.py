@@ -135,11 +135,9 @@ def test_singular_controlled_source_is_a_circuit_error_not_linalg() -> None:
     assert "load" in err.value.components
 
 
-def test_sparse_factorisation_agrees_with_the_dense_batch(monkeypatch: pytest.MonkeyPatch) -> None:
-    # large circuits are factorised sparse, variant by variant; both paths must give one answer
+def _stop_lamp_net():  # type: ignore[no-untyped-def]
     from pathlib import Path
 
-    from assistant.circuit import mna
     from assistant.circuit.netlist import CircuitModel
     from assistant.predict import hypotheses_of
     from assistant.ruleset.load import load_ruleset
@@ -147,11 +145,37 @@ def test_sparse_factorisation_agrees_with_the_dense_batch(monkeypatch: pytest.Mo
     ruleset = load_ruleset(Path(__file__).resolve().parents[2] / "rulesets" / "lamp" / "stop_lamps.yaml").ruleset
     model = CircuitModel(ruleset)
     _, members = hypotheses_of(ruleset)
-    batch = model.batch(members, 3)
-    net = model.netlist(batch, ruleset.tests[-1].state or model.states[0]).net
+    return model.netlist(model.batch(members, 3), "pedal_pressed").net
+
+
+@pytest.mark.parametrize("path", ["elimination", "sparse"])
+def test_every_solver_path_agrees_with_the_dense_batch(path: str, monkeypatch: pytest.MonkeyPatch) -> None:
+    # large circuits go through the batched sparse elimination (or, where a pivot is doubtful,
+    # a sparse LU per variant); every path must give the dense LAPACK answer
+    from assistant.circuit import mna
+
+    net = _stop_lamp_net()
     dense = solve(net, probes=[(3, 0)])
-    monkeypatch.setattr(mna, "SPARSE_ABOVE", 0)
-    sparse = solve(net, probes=[(3, 0)])
-    assert np.allclose(sparse.volts, dense.volts, rtol=1e-12, atol=1e-12)
-    assert np.allclose(sparse.response, dense.response, rtol=1e-10, atol=1e-12)
-    assert np.array_equal(sparse.island, dense.island)
+    monkeypatch.setattr(mna, "DENSE_UP_TO", 0)
+    if path == "sparse":
+        monkeypatch.setattr(mna, "SPARSE_ABOVE", 0)
+        monkeypatch.setattr(mna.Elimination, "solve", lambda self, data, z: (np.zeros_like(z), np.ones(len(z), bool)))
+    other = solve(net, probes=[(3, 0)])
+    assert np.allclose(other.volts, dense.volts, rtol=1e-12, atol=1e-12)
+    assert np.allclose(other.response, dense.response, rtol=1e-10, atol=1e-12)
+    assert np.array_equal(other.island, dense.island)
+
+
+def test_elimination_hands_back_a_zero_pivot(monkeypatch: pytest.MonkeyPatch) -> None:
+    # a node joined only by 0-ohm branches (an ideal source and a switch) has no conductance on
+    # its diagonal: the elimination must flag it and the pivoting LU must answer (12 V on 6 ohm)
+    from assistant.circuit import mna
+
+    monkeypatch.setattr(mna, "DENSE_UP_TO", 0)
+    net = _net(["0", "a", "b"], [("E", 1, 0, 0.0, 12.0), ("sw", 1, 2, 0.0, 0.0), ("R", 2, 0, 6.0, 0.0)])
+    pattern = mna._Pattern(net, [0, 1])
+    _, redo = mna._plan(pattern, 2).solve(pattern.values(net), np.zeros((1, pattern.size, 1)))
+    assert redo.all()
+    sol = solve(net)
+    assert sol.volts[0, 2] == pytest.approx(12.0, rel=1e-12)
+    assert sol.currents[0, 2] == pytest.approx(2.0, rel=1e-12)
