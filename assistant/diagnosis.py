@@ -271,6 +271,13 @@ class Diagnosis:
                 elif action.caution is not None:
                     cautions.append(action.caution)
         if not np.isfinite(logp).any():
+            if not np.isfinite(core.base_log_prior).any() and not core.context.complaint:
+                raise RulesEngineError(f"{core.loaded.path}: every hypothesis has a prior of 0")
+            if not np.isfinite(core.base_log_prior).any():
+                # Found by tests/test_numbers.py: this used to blame "the rules" when none had fired.
+                raise RulesEngineError(
+                    f"{core.loaded.path}: complaint '{core.context.complaint}' leaves no hypothesis: its suspects "
+                    "have no weight and its 'others' factor of 0 rules out the rest")
             raise RulesEngineError(f"{core.loaded.path}: the rules {', '.join(fired)} rule out every hypothesis")
         self._log_prior = logp
         self._required = tuple(dict.fromkeys(required))
