@@ -352,7 +352,7 @@ def _meter(args: argparse.Namespace) -> tuple[MeterProfile | None, str]:
     from assistant.meter import load_meter_profile
 
     path = getattr(args, "meter", None)
-    return (load_meter_profile(path), str(path)) if path else (None, "default")
+    return (load_meter_profile(path), str(Path(path).resolve())) if path else (None, "default")
 
 
 def _source(args: argparse.Namespace, engine: Engine, *, narrate: bool) -> ReadingSource:
@@ -471,7 +471,8 @@ def _add_reading_source_options(p: argparse.ArgumentParser) -> None:
                    "of the conversation")
     p.add_argument("--db", metavar="URL", help="session store: sqlite:///FILE or postgresql://... (default: "
                    "$OHMTRAIL_DB or sessions.db in the user data folder)")
-    p.add_argument("--meter", metavar="FILE", help="meter profile YAML (default: a 2000-count handheld)")
+    p.add_argument("--meter", metavar="FILE", help="meter profile YAML (default: a 2000-count handheld; for "
+                   "resume, the one the session started with)")
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -74,13 +74,18 @@ class ClosingPage:
 
 
 def verdict(reading: Reading, page: TestPage) -> str | None:
-    """How a reading compares with the healthy range: "in range", "low", "high", "OL", ...."""
+    """How a reading compares with what a healthy circuit shows.
+
+    "in range" whenever it is what a healthy circuit shows (an observation's healthy outcome, OL
+    where OL is healthy), "low" or "high" for a value outside the range, "OL" for an overload
+    where a value was expected, "not as expected" for another outcome; None where nothing is known.
+    """
     if reading.outcome is not None:
         if page.expected_outcome is None:
             return None
-        return "as expected" if reading.outcome == page.expected_outcome else "not as expected"
+        return "in range" if reading.outcome == page.expected_outcome else "not as expected"
     if reading.overload:
-        return "OL, as expected" if page.healthy == "OL" else "OL"
+        return "in range" if page.healthy == "OL" else "OL"
     if reading.value is None:
         return None
     if page.healthy_low is not None and reading.value < page.healthy_low:

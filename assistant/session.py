@@ -84,8 +84,15 @@ class Engine:
 
 
 def engine_for_record(record: SessionRecord, meter: MeterProfile | None = None) -> Engine:
-    """The engine a stored session ran on: its ruleset file and overlays, unchanged, predicted anew."""
+    """The engine a stored session ran on: its ruleset file and overlays, unchanged, predicted anew.
+
+    The meter is the one given, else the profile file the session was started with.
+    """
+    from assistant.meter import load_meter_profile
     from assistant.ruleset.load import load_ruleset
+
+    if meter is None and record.meter_profile != "default":
+        meter = load_meter_profile(record.meter_profile)
 
     if not record.ruleset_path:
         raise SessionError(f"session {record.id} does not say which ruleset file it used")
@@ -314,9 +321,8 @@ class Session:
                     + f"; leading suspect {lead} {p:.0%}")
         self._fired(source)
         conflict = getattr(self.diagnosis, "conflict", None)
-        if conflict is not None:
-            source.tell(f"no fault of this ruleset explains every reading so far: {conflict}; "
-                        "re-measure the reading in doubt or undo it")
+        if conflict is not None:  # its message names the reading to re-measure
+            source.tell(f"{conflict.message} (type remeasure {conflict.test_id}, or undo)")
 
     def _undo(self, source: ReadingSource) -> None:
         try:

@@ -45,6 +45,7 @@ _FONT = "Helvetica"
 _FILL = {"in range": "#e8f3e8", "start": "#eef2f7", "conclusion": "#eef2f7",
          "repair": "#f4f0e6", "verification": "#e8f3e8"}
 _OUT_OF_RANGE_FILL = "#fbe6d4"
+_GOOD_VERDICTS = ("in range", "as expected")
 _GREY = "#777777"
 PNG_DPI = 150  # resolution of the png drawing, also the one the PDF report embeds
 
@@ -110,7 +111,7 @@ def _reading_rows(step: Step, names: Mapping[str, str], *, struck: bool) -> list
     verdict = html_text(step.verdict or "", 14)
     if struck:
         read, verdict = f"<S>{read}</S>", f"<S>{verdict}</S>"
-    verdict_fill = None if struck else (_FILL["in range"] if step.verdict == "in range"
+    verdict_fill = None if struck else (_FILL["in range"] if step.verdict in _GOOD_VERDICTS
                                         else _OUT_OF_RANGE_FILL if step.verdict else None)
     rows = [_cell(f"read <B>{read}</B>") + _cell(f"healthy {expected}" if expected else "")
             + _cell(f"<B>{verdict}</B>" if verdict else "", bgcolor=verdict_fill)]
@@ -258,18 +259,24 @@ def trail_graph(record: SessionRecord, names: Mapping[str, str] | None = None) -
     graph.node("complaint", _complaint_label(record, start, names))
     spine_prev = "complaint"
     last_reading: dict[str, str] = {}
+    side_prev: str | None = None  # the last note or rule drawn beside the current step
     for step in steps:
         if step is start:
             continue
         name = f"s{step.index}"
         if step.kind in ("note", "rule"):
             graph.node(name, _side_label(step))
-            graph.edge(spine_prev, name, style="dashed", arrowhead="none", color="#999999")
-            with graph.subgraph() as same:
-                same.attr(rank="same")
-                same.node(spine_prev)
-                same.node(name)
+            if side_prev is None:  # the first beside its step, level with it
+                graph.edge(spine_prev, name, style="dashed", arrowhead="none", color="#999999")
+                with graph.subgraph() as same:
+                    same.attr(rank="same")
+                    same.node(spine_prev)
+                    same.node(name)
+            else:  # further ones stacked under it, so the drawing keeps two columns
+                graph.edge(side_prev, name, style="dashed", arrowhead="none", color="#999999")
+            side_prev = name
             continue
+        side_prev = None
         graph.node(name, _spine_label(step, record, names, undone))
         graph.edge(spine_prev, name)
         if step.kind == "undo" and step.refers_to is not None and any(

@@ -137,6 +137,32 @@ def test_resume_carries_on_and_keeps_what_was_there(capsys: pytest.CaptureFixtur
     assert after.status == "closed" and after.diagnosis == "w_left_gnd.high_resistance"
 
 
+def test_a_conflicting_reading_is_pointed_out(capsys: pytest.CaptureFixture[str], db: str, tmp_path: Path) -> None:
+    # All lamps bright, yet 0.2 V after the fuse: no single fault explains both.
+    path = tmp_path / "conflict.yaml"
+    path.write_text("complaint: left_dim\nreadings:\n  look_lamps: all_bright\n  v_fuse: 0.2 V\n", encoding="utf-8")
+    code, out, _ = run(capsys, "diagnose", str(STOP_LAMPS), "--answers", str(path), "--db", db)
+    assert code == 0
+    assert any("no fault explains every reading" in line and line.endswith("(type remeasure v_fuse, or undo)")
+               for line in out.splitlines())
+
+
+def test_resume_uses_the_sessions_meter_profile(capsys: pytest.CaptureFixture[str], db: str,
+                                                tmp_path: Path) -> None:
+    from assistant.meter import load_meter_profile
+
+    meter_file = tmp_path / "meter.yaml"
+    meter_file.write_text((ROOT / "assistant" / "data" / "meter_default.yaml").read_text(encoding="utf-8"),
+                          encoding="utf-8")
+    engine = Engine.build(load_ruleset(STOP_LAMPS), load_meter_profile(meter_file))
+    source = QuitsAfter(SimulatedSource(engine.table, "c40.open", seed=2), 1)
+    with open_store(db) as store:
+        Session.begin(store, engine, source, session_id="m1", meter_name=str(meter_file)).run(source)  # type: ignore[arg-type]
+    meter_file.unlink()  # resume must look for the session's own meter profile, and say it is gone
+    code, _, err = run(capsys, "resume", "m1", "--simulate", "c40.open", "--db", db)
+    assert code == 1 and str(meter_file) in err and err.count("\n") == 1
+
+
 @pytest.mark.parametrize(
     ("argv", "says"),
     [

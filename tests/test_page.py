@@ -75,6 +75,8 @@ def test_observation_pages(stop_pages: PageMaker) -> None:
     page = stop_pages.page("look_fuse")
     assert page.outcomes == ("yes", "no") and page.expected_outcome == "no" and page.setup == ()
     assert page.what == "Is fuse F12 visibly blown (broken link)?"
+    assert verdict(Reading("no", outcome="no"), page) == "in range"  # what a healthy circuit shows
+    assert verdict(Reading("yes", outcome="yes"), page) == "not as expected"
 
 
 @pytest.mark.parametrize(

@@ -141,7 +141,7 @@ def test_observation_verdicts(tmp_path: Path, store: Store) -> None:
         source = Scripted([Answer("12.4"), Answer(outcome)])
         record = Session.begin(store, fake_engine(tmp_path), source, session_id=session_id).run(source)
         verdicts += [(s.reading_text, s.verdict) for s in record.steps if s.test_id == "t_look"]
-    assert verdicts == [("no", "as expected"), ("yes", "not as expected")]
+    assert verdicts == [("no", "in range"), ("yes", "not as expected")]
 
 
 def test_quit_then_resume_carries_on_from_the_same_state(tmp_path: Path, store: Store) -> None:

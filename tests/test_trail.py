@@ -203,3 +203,16 @@ def test_the_conclusion_names_the_test_that_is_to_prove_the_repair() -> None:
     steps[11] = steps[11].model_copy(update={"test_id": "drop_left_ground"})
     source = dot_source(record.model_copy(update={"steps": tuple(steps)}))
     assert "verify with: drop_left_ground" in source
+
+
+def test_notes_after_one_step_stack_beside_it() -> None:
+    record = load_session()
+    steps = list(record.steps)
+    extra = [steps[8].model_copy(update={"index": 9 + i, "note": f"remark {i}"}) for i in range(2)]
+    renumbered = [s.model_copy(update={"index": n}) for n, s in
+                  enumerate(steps[:9] + extra + steps[9:])]
+    source = dot_source(record.model_copy(update={"steps": tuple(renumbered)}))
+    # the first note is level with step 7; the next two hang under it, not beside it
+    assert "s7 -> s8 [arrowhead=none" in source
+    assert "s8 -> s9 [arrowhead=none" in source and "s9 -> s10 [arrowhead=none" in source
+    assert "s7 -> s11" in source  # the path goes on from the step, not from a note

@@ -84,8 +84,8 @@ class Solution:
     """The operating points of a batch.
 
     ``volts[v, i]`` is node ``i``'s voltage in variant ``v`` (ground 0). A node cut off from the
-    ground by a fault lies in a floating *island* (``island[v, i] > 0``); its voltage is then
-    relative to the island's own lowest-numbered node, so differences inside one island are
+    ground by a fault lies in a floating *island* (``island[v, i] > 0``: the island is named by
+    its lowest-numbered node); its voltage is then relative to that node, so differences inside one island are
     physical and differences across islands are not (a meter across two islands closes no loop
     and reads 0 V). ``currents[v, j]`` is the current from ``a`` to ``b`` in branch ``j``.
     ``response[v, i, k]`` is node ``i``'s voltage when 1 A is driven into probe pair ``k``'s first
@@ -342,60 +342,53 @@ def _edges(net: Netlist) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 
 def _islands(net: Netlist) -> np.ndarray:
-    """(B, n) connected-component label of every node; 0 is the ground's island.
+    """(B, n) island of every node: the lowest node index it is connected to (0: the ground's).
 
-    Variants share few distinct patterns of present elements, so each pattern is labelled once.
+    Labels spread along the present elements of every variant at once (each node takes the
+    lowest label among its neighbours), with pointer jumping (a label takes its own label's
+    label) so that long chains settle in a few rounds.
     """
     n = len(net.nodes)
-    a, b, active = _edges(net)
-    packed = np.packbits(active, axis=1)
+    a, b, every = _edges(net)
+    if a.size == 0:
+        return np.tile(np.arange(n), (net.batch, 1))
+    # variants share few patterns of present elements: trace each pattern once
+    packed = np.packbits(every, axis=1)
     pattern_of: dict[bytes, int] = {}
     inverse = np.empty(net.batch, dtype=int)
     firsts: list[int] = []
     for v in range(net.batch):
-        key = packed[v].tobytes()
-        p = pattern_of.get(key)
-        if p is None:
-            p = pattern_of[key] = len(firsts)
+        inverse[v] = pattern_of.setdefault(packed[v].tobytes(), len(firsts))
+        if inverse[v] == len(firsts):
             firsts.append(v)
-        inverse[v] = p
-    labels = np.zeros((len(firsts), n), dtype=int)
-    for p, v in enumerate(firsts):
-        on = active[v]
-        lab = _union_find(n, a[on], b[on])
-        # relabel: ground's island 0, the others 1.. in order of their first node
-        order: dict[int, int] = {int(lab[GROUND]): 0}
-        labels[p] = [order.setdefault(int(x), len(order)) for x in lab]
-    return labels[inverse]
+    return _trace(n, a, b, every[firsts])[inverse]
 
 
-def _union_find(n: int, a: np.ndarray, b: np.ndarray) -> list[int]:
-    parent = list(range(n))
-
-    def find(x: int) -> int:
-        while parent[x] != x:
-            parent[x] = parent[parent[x]]
-            x = parent[x]
-        return x
-
-    for x, y in zip(a.tolist(), b.tolist(), strict=True):
-        rx, ry = find(x), find(y)
-        if rx != ry:
-            parent[max(rx, ry)] = min(rx, ry)
-    return [find(x) for x in range(n)]
+def _trace(n: int, a: np.ndarray, b: np.ndarray, active: np.ndarray) -> np.ndarray:
+    """(P, n) lowest connected node index of every node, for P patterns of present edges."""
+    B = active.shape[0]
+    labels = np.tile(np.arange(n), (B, 1))
+    rows = np.arange(B)[:, None]
+    for _ in range(4 * n + 4):
+        low = np.where(active, np.minimum(labels[:, a], labels[:, b]), n)
+        new = labels.copy()
+        np.minimum.at(new, (np.broadcast_to(rows, low.shape), np.broadcast_to(a, low.shape)), low)
+        np.minimum.at(new, (np.broadcast_to(rows, low.shape), np.broadcast_to(b, low.shape)), low)
+        for _ in range(8):  # pointer jumping
+            jumped = new[rows, new]
+            if np.array_equal(jumped, new):
+                break
+            new = jumped
+        if np.array_equal(new, labels):
+            return labels
+        labels = new
+    raise CircuitError("the circuit's connections could not be traced")  # unreachable: n rounds suffice
 
 
 def _island_heads(island: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """(variant, node) of the first node of every floating island."""
-    B, n = island.shape
-    floating = island > 0
-    if not floating.any():
-        return np.zeros(0, dtype=int), np.zeros(0, dtype=int)
-    # labels are numbered in order of their first node, so a node heads its island exactly when
-    # its label exceeds every label before it
-    before = np.zeros_like(island)
-    before[:, 1:] = np.maximum.accumulate(island[:, :-1], axis=1)
-    return np.nonzero(floating & (island > before))
+    nodes = np.arange(island.shape[1])
+    return np.nonzero((island == nodes[None, :]) & (nodes[None, :] > 0))
 
 
 def _check_zero_ohm_loops(net: Netlist) -> None:

@@ -92,6 +92,9 @@ def operate(
         todo = np.zeros(B, dtype=bool)
         for f in blown_now:
             todo |= blown_now[f] != start.blown[f]
+        # the variants solved again enter the state afresh: relays at rest, motors judged anew
+        pulled = {c: np.where(todo, False, v) for c, v in pulled.items()}
+        stalled = {m: np.where(todo, False, v) for m, v in stalled.items()}
         solution = start.solution
     for _ in range(MAX_ROUNDS):
         contacts = {c.id: pulled[c.id] ^ c.normally_closed for c in model.contacts}

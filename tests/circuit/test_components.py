@@ -164,3 +164,22 @@ def test_load_draws_its_current_at_system_voltage() -> None:
     assert (v["P"] - v["M"]) / 0.001 == pytest.approx(0.030, rel=1e-3)
     v = nominal_volts(ruleset, "ecu.stays_awake")
     assert (v["P"] - v["M"]) / 0.001 == pytest.approx(0.5, rel=1e-3)
+
+
+def test_a_relay_its_own_load_makes_chatter_is_taken_as_at_rest() -> None:
+    # a battery with 6 ohm inside: at rest the 80 ohm coil draws 12.6 / 86 = 147 mA (pulls in at
+    # 50 mA); closed, the motor (0.5 ohm, back-EMF 12 - 23 x 0.5 = 0.5 V) pulls the supply to
+    # V = 18.6 / 13.075 = 1.42 V and the coil to 17.8 mA, under the 20 mA (40 %) hold [D]: the
+    # contact chatters, and the prediction takes it at rest
+    comps = [{"id": "b", "type": "battery", "nodes": ["P", "GND"], "emf": 12.6, "internal_resistance": "6 ohm",
+              "tolerance": 0},
+             {"id": "coil", "type": "relay_coil", "nodes": ["P", "GND"], "resistance": "80 ohm", "tolerance": 0},
+             {"id": "k", "type": "relay_contact", "nodes": ["P", "M"], "coil": "coil"},
+             {"id": "m", "type": "motor", "nodes": ["M", "GND"], "resistance": "0.5 ohm", "running_current": "23 A",
+              "tolerance": 0}]
+    v = nominal_volts(build_ruleset(comps))
+    assert v["M"] == pytest.approx(0.0, abs=1e-12)
+    assert v["P"] == pytest.approx(12.6 * 80 / 86, rel=1e-9)
+    # with a healthy battery (10 mOhm) the same relay holds and the motor runs
+    comps[0] = dict(comps[0], internal_resistance="0.01 ohm")
+    assert nominal_volts(build_ruleset(comps))["M"] > 12.0

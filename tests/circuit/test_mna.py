@@ -7,6 +7,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from assistant.circuit.mna import Branch, Netlist, Vccs, solve
 from assistant.errors import CircuitError
@@ -179,3 +181,48 @@ def test_elimination_hands_back_a_zero_pivot(monkeypatch: pytest.MonkeyPatch) ->
     sol = solve(net)
     assert sol.volts[0, 2] == pytest.approx(12.0, rel=1e-12)
     assert sol.currents[0, 2] == pytest.approx(2.0, rel=1e-12)
+
+
+@st.composite
+def _networks(draw):  # type: ignore[no-untyped-def]
+    """A random connected resistor network with one battery, as branch tuples."""
+    n = draw(st.integers(min_value=2, max_value=9))
+    elements = [("bat", 1, 0, draw(st.floats(0.001, 1.0)), draw(st.floats(1.0, 24.0)))]
+    for node in range(2, n + 1):  # a spanning tree keeps every node connected
+        elements.append((f"t{node}", draw(st.integers(0, node - 1)), node, draw(st.floats(0.01, 1e4)), 0.0))
+    for k in range(draw(st.integers(0, 8))):
+        a, b = draw(st.integers(0, n)), draw(st.integers(0, n))
+        if a != b:
+            elements.append((f"x{k}", a, b, draw(st.floats(0.01, 1e4)), 0.0))
+    return n, elements
+
+
+@settings(max_examples=60, deadline=None)
+@given(_networks())
+def test_kirchhoff_and_the_maximum_principle_hold_on_random_networks(network) -> None:  # type: ignore[no-untyped-def]
+    # Kirchhoff's current law at every node, and (one source, the rest passive) every node
+    # voltage between the battery's terminals: invariants of any resistive network
+    n, elements = network
+    sol = solve(_net([str(i) for i in range(n + 1)], elements))
+    currents = sol.currents[0]
+    for node in range(1, n + 1):
+        leaving = sum(i for (name, a, b, _, _), i in zip(elements, currents, strict=True) if a == node)
+        entering = sum(i for (name, a, b, _, _), i in zip(elements, currents, strict=True) if b == node)
+        assert abs(leaving - entering) <= 1e-9 * (1 + max(abs(currents).max(), 1.0))
+    v = sol.volts[0]
+    slack = 1e-8 * abs(v[1])  # round-off of a system whose conductances span six decades
+    assert v.min() >= -slack and v.max() <= v[1] + slack
+
+
+def test_no_ground_is_refused_naming_the_parts() -> None:
+    from assistant.circuit.netlist import CircuitModel
+    from assistant.ruleset.model import Ruleset
+
+    doc = {"format": 1, "id": "floating", "title": "t", "family": "lamp", "version": "1", "system_voltage": 12,
+           "nodes": {"P": {}, "N": {}, "GND": {}},
+           "components": [{"id": "b", "type": "battery", "nodes": ["P", "N"], "emf": 12.6},
+                          {"id": "lamp", "type": "lamp", "nodes": ["P", "N"], "rating": 21}],
+           "states": {"on": {"label": "on"}}, "tests": [{"id": "v", "kind": "voltage", "at": "P"}]}
+    with pytest.raises(CircuitError) as err:
+        CircuitModel(Ruleset.model_validate(doc))
+    assert "GND" in str(err.value) and set(err.value.components) == {"b", "lamp"}
