@@ -276,8 +276,12 @@ def stop_check(p: np.ndarray, model: EvidenceModel, candidates: Sequence[int],
         for h in left:
             closed.update(int(x) for x in indistinguishable(model, h, alive, tolerance=settings.ambiguity_tolerance))
         left = left + tuple(sorted(closed - set(left), key=lambda h: -p[h]))
-        return Stop(f"{reason}; the faults left reach the threshold together and no test left tells them apart",
-                    True, left)
+        hyps = model.table.hypotheses
+        if any(not hyps[h].faults for h in left):  # "none" is one of them
+            what = "no fault found beyond what the tests can resolve: no fault, or a fault left that no test left tells from it"
+        else:
+            what = "the faults left reach the threshold together and no test left tells them apart"
+        return Stop(f"{reason}; {what}", True, left)
     return Stop(reason, False, (top,))
 
 
