@@ -22,10 +22,10 @@ tools:
 # 127.0.0.1 (installing Debian's postgresql when missing) and prints its URL. Without one they
 # skip locally and fail under CI=true. pytest's exit 5 (no tests collected) is not a failure.
 test: $(STAMP) tools
+	$(BIN)/ohmtrail check rulesets/
 	@url="$${OHMTRAIL_TEST_PG_URL:-$$(sh tools/ensure-postgres.sh)}"; \
 	OHMTRAIL_TEST_PG_URL="$$url" $(BIN)/python -m pytest; rc=$$?; \
 	if [ $$rc -eq 5 ]; then echo "pytest collected no tests"; rc=0; fi; exit $$rc
-	$(BIN)/ohmtrail check rulesets/
 
 postgres:
 	@sh tools/ensure-postgres.sh

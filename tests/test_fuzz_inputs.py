@@ -132,28 +132,40 @@ def test_verify_never_raises_and_catches_every_change(case: tuple) -> None:
     assert check_export(case) in ("accepted", "refused")
 
 
-def test_every_leaf_of_an_export_tampered_in_turn_is_caught() -> None:
+def test_ohmtrail_verify_exits_1_naming_the_place_for_every_leaf_tampered(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # The same tampering through the command a claims department runs: exit 1, one line, the place.
+    from assistant.cli import main
+
     original = json.loads(export_base())
+    path = tmp_path / "export.json"
+    path.write_text(json.dumps(original), encoding="utf-8")
+    assert main(["verify", str(path)]) == 0
+    assert "intact" in capsys.readouterr().out
     leaves: list[tuple] = []
 
-    def walk(value: object, path: tuple) -> None:
+    def walk(value: object, where: tuple) -> None:
         if isinstance(value, dict):
             for k, v in value.items():
-                walk(v, path + (k,))
+                walk(v, where + (k,))
         elif isinstance(value, list) and value:
             for i, v in enumerate(value):
-                walk(v, path + (i,))
+                walk(v, where + (i,))
         else:
-            leaves.append(path)
+            leaves.append(where)
 
     walk(original, ())
-    assert len(leaves) > 100
-    for path in leaves:
+    for where in leaves:
         doc = json.loads(export_base())
         parent = doc
-        for part in path[:-1]:
+        for part in where[:-1]:
             parent = parent[part]
-        old = parent[path[-1]]
-        parent[path[-1]] = (not old if isinstance(old, bool) else old + 1 if isinstance(old, (int, float))
-                            else old + "x" if isinstance(old, str) else "x")
-        assert check_export(("set", doc, "changed")) == "refused", path
+        old = parent[where[-1]]
+        parent[where[-1]] = (not old if isinstance(old, bool) else old + 1 if isinstance(old, (int, float))
+                             else old + "x" if isinstance(old, str) else "x")
+        path.write_text(json.dumps(doc), encoding="utf-8")
+        assert main(["verify", str(path)]) == 1, where
+        err = capsys.readouterr().err.strip()
+        assert err.startswith(f"{path}: ") and "\n" not in err, (where, err)
+        place = verify_export(doc).place
+        assert place and err.startswith(f"{path}: {place}: "), (where, err)

@@ -8,6 +8,8 @@ from pathlib import Path
 
 import pytest
 
+from assistant.cautions import HIGH_VOLTAGE, MAKER_FIRST, cautions_for
+
 from assistant.cases import run_cases
 from assistant.predict import predict
 from assistant.ruleset import fault_list, lint_ruleset, load_ruleset, ruleset_files
@@ -42,7 +44,12 @@ def test_drawn_for_our_invented_van_with_cautions_and_six_cases(path: Path) -> N
     ruleset = load_ruleset(path).ruleset
     assert any("Larkspur" in v.model for v in ruleset.applies_to)
     assert ruleset.cautions, "every bundled ruleset carries its cautions"
-    assert any("maker's procedures" in c for c in ruleset.cautions)
+    # the maker-first and high-voltage cautions come with every page from assistant.cautions, so a
+    # ruleset does not repeat them in other words
+    for test in ruleset.tests:
+        shown = cautions_for(ruleset, test)
+        assert MAKER_FIRST in shown and HIGH_VOLTAGE in shown
+        assert sum("maker's procedures" in c for c in shown) == 1, test.id
     assert len(ruleset.cases) >= 6
     # a case for at least six different faults: the cases are not one fault six times
     assert len({c.expect for c in ruleset.cases}) >= 6
