@@ -215,7 +215,7 @@ def _conclusion_rows(step: Step, record: SessionRecord, names: Mapping[str, str]
         lead = ("<B>no fault found beyond what the tests can resolve</B>: one of "
                 if "none" in group else "<B>one of:</B> ")
         verdict = (lead + html_text(members) + together + "; most likely "
-                   + html_text(_name(record.diagnosis, names))
+                   + html_text("no fault" if record.diagnosis == "none" else _name(record.diagnosis, names))
                    + f"\xa0{_nbsp(format_probability(record.probability))}")
     elif record.diagnosis is not None:
         verdict = (f"<B>{html_text(_name(record.diagnosis, names))}</B>  "
