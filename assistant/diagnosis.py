@@ -441,8 +441,9 @@ class Diagnosis:
                        if any(x.id == t for x in tests)]
         choice = choose_test(p, core.model, candidates, core.settings,
                              current_state=self._current_state(), recommended=recommended)
+        skipped = [core.table.test_index(t) for t in self.skipped]
         stop = stop_check(p, core.model, candidates, core.settings,
-                          choice.gain_bits if choice else None)
+                          choice.gain_bits if choice else None, skipped=skipped)
         if stop is not None or choice is None:
             return self._conclusion(stop.reason if stop else "no tests left",
                                     stop.certain if stop else False, stop.group if stop else ())

@@ -76,6 +76,9 @@ def format_reading(step: Step) -> str:
     return clean_text(step.reading_text or "")
 
 
+CANNOT_TELL_APART = "No test left can tell the diagnosis from"  # the report's line on a group
+
+
 def format_probability(p: float | None) -> str:
     """``0.981`` -> ``"98.1 %"``; tiny but non-zero values do not round to zero."""
     if p is None:

@@ -159,6 +159,9 @@ class PageMaker:
     def closing(self, conclusion: Conclusion, diagnosis: Diagnosis) -> ClosingPage:
         """The page at the stop."""
         label = self.hypothesis_label(conclusion.diagnosis) if conclusion.diagnosis else "no single fault"
+        group = tuple(getattr(conclusion, "group", ()))  # an engine's conclusion may carry no group
+        if conclusion.diagnosis and len(group) > 1:
+            label = "one of: " + "; ".join(self.hypothesis_label(h) for h in group)
         first = conclusion.repairs[0] if conclusion.repairs else None
         verification = None
         if conclusion.verification_test and conclusion.verification_test in self._specs:
@@ -360,7 +363,13 @@ def render_closing(page: ClosingPage) -> str:
     """The stop as text: the diagnosis, the repairs in order, the verification test."""
     c = page.conclusion
     lines = ["== Conclusion =="]
-    if c.diagnosis:
+    group = tuple(getattr(c, "group", ()))  # an engine's conclusion may carry no group
+    if c.diagnosis and len(group) > 1:
+        head = ("No fault found beyond what the tests can resolve" if "none" in group
+                else "The tests cannot tell these apart")
+        lines.append(f"{head}: one of {', '.join(group)}, together {float(getattr(c, 'group_probability', 0.0)):.1%}")
+        lines.append(f"  ({page.label}); most likely {c.diagnosis}, {c.probability:.1%}")
+    elif c.diagnosis:
         lines.append(f"Diagnosis: {c.diagnosis} ({page.label}), probability {c.probability:.1%}")
     else:
         lines.append(f"No fault is certain enough (best {c.probability:.1%})")

@@ -228,9 +228,33 @@ class Stop:
     group: tuple[int, ...]
 
 
+def residual_group(p: np.ndarray, model: EvidenceModel, tests: Sequence[int],
+                   settings: PlannerSettings) -> tuple[int, ...]:
+    """The fewest most probable hypotheses that reach the threshold together, provided no test
+    of ``tests`` tells any two of them apart (total-variation distance under the tolerance);
+    else ``()``. Most probable first."""
+    order = np.argsort(-p, kind="stable")
+    total = np.cumsum(p[order])
+    k = int(np.searchsorted(total, settings.threshold)) + 1
+    if k > order.size or total[k - 1] < settings.threshold:
+        return ()
+    members = order[:k]
+    for t in tests:
+        rows = model.tests[t].model[members]
+        if float(total_variation(rows[:, None, :], rows[None, :, :]).max()) >= settings.ambiguity_tolerance:
+            return ()
+    return tuple(int(h) for h in members)
+
+
 def stop_check(p: np.ndarray, model: EvidenceModel, candidates: Sequence[int],
-               settings: PlannerSettings, best_gain: float | None) -> Stop | None:
-    """A Stop if the planner should stop now, else None. ``best_gain``: the best candidate's gain."""
+               settings: PlannerSettings, best_gain: float | None, *,
+               skipped: Sequence[int] = ()) -> Stop | None:
+    """A Stop if the planner should stop now, else None. ``best_gain``: the best candidate's gain;
+    ``skipped``: the tests the technician could not make (they could still tell faults apart).
+
+    When no test is left, or none can change the answer, and the most probable hypotheses reach
+    the threshold together while no test left or skipped tells them apart, the stop is certain
+    of that group: it is what the tests can resolve (see :func:`residual_group`)."""
     top = int(np.argmax(p))
     if p[top] >= settings.threshold:
         return Stop("threshold reached", True, (top,))
@@ -239,10 +263,26 @@ def stop_check(p: np.ndarray, model: EvidenceModel, candidates: Sequence[int],
         ordered = tuple(int(h) for h in group[np.argsort(-p[group], kind="stable")])
         return Stop("threshold reached by faults no test can tell apart", True, ordered)
     if not candidates:
-        return Stop("no tests left", False, (top,))
-    if best_gain is not None and best_gain < settings.min_gain_bits:
-        return Stop("no test can change the answer", False, (top,))
-    return None
+        reason = "no tests left"
+    elif best_gain is not None and best_gain < settings.min_gain_bits:
+        reason = "no test can change the answer"
+    else:
+        return None
+    left = residual_group(p, model, [*candidates, *skipped], settings)
+    if len(left) > 1:
+        # with the faults no test of the ruleset tells from a member, however unlikely now
+        alive = _alive(p)
+        closed = set(left)
+        for h in left:
+            closed.update(int(x) for x in indistinguishable(model, h, alive, tolerance=settings.ambiguity_tolerance))
+        left = left + tuple(sorted(closed - set(left), key=lambda h: -p[h]))
+        hyps = model.table.hypotheses
+        if any(not hyps[h].faults for h in left):  # "none" is one of them
+            what = "no fault found beyond what the tests can resolve: no fault, or a fault left that no test left tells from it"
+        else:
+            what = "the faults left reach the threshold together and no test left tells them apart"
+        return Stop(f"{reason}; {what}", True, left)
+    return Stop(reason, False, (top,))
 
 
 # --------------------------------------------------------------------------- after the stop

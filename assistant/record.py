@@ -89,6 +89,7 @@ class SessionRecord(Record):
     probability: float | None = None
     alternatives: tuple[tuple[str, float], ...] = ()
     ambiguity_group: tuple[str, ...] = ()  # faults no test of the ruleset tells from the diagnosis (it first)
+    group_probability: float | None = None  # the ambiguity group's probability together, when there is one
     stopped_because: str | None = None
     repair: str | None = None
     verification: str | None = None

@@ -23,6 +23,7 @@ from pathlib import Path
 from assistant import __version__
 from assistant import cautions as caution_texts
 from assistant.display import (
+    CANNOT_TELL_APART,
     clean_text,
     complaint_text,
     format_probability,
@@ -78,7 +79,7 @@ class ReportContent:
     diagnosis_probability: str
     stopped_because: str
     alternatives: tuple[tuple[str, str], ...]
-    cannot_tell_apart: tuple[str, ...]  # faults no test of the ruleset tells from the diagnosis
+    cannot_tell_apart: tuple[str, ...]  # faults no test left tells from the diagnosis
     repair: str
     verification: str
     steps: tuple[StepRow, ...]
@@ -91,6 +92,33 @@ class ReportContent:
 
 def _name(key: str | None, names: Mapping[str, str]) -> str:
     return clean_text(names.get(key, key)) if key else ""
+
+
+def _member(key: str, names: Mapping[str, str]) -> str:
+    return "no fault" if key == "none" else _name(key, names)
+
+
+def _diagnosis_words(record: SessionRecord, names: Mapping[str, str],
+                     in_progress: bool) -> tuple[str, str | None, str]:
+    """(the diagnosis, the fault id(s) when shown by name, the probability) as the report says them.
+
+    A group the tests cannot tell apart is shown as "one of" its members with their probability
+    together, never as one certain part."""
+    group = tuple(record.ambiguity_group) if len(record.ambiguity_group) > 1 else ()
+    if record.diagnosis and group:
+        members = "; ".join(_member(f, names) for f in group)
+        words = (f"No fault found beyond what the tests can resolve: one of {members}" if "none" in group
+                 else f"One of: {members}")
+        ids = ", ".join(clean_text(f) for f in group)
+        shown = (f"together {format_probability(record.group_probability)}; "
+                 if record.group_probability is not None else "")
+        shown += f"most likely {_member(record.diagnosis, names)} {format_probability(record.probability)}"
+        return words, ids, shown
+    words = (_name(record.diagnosis, names) if record.diagnosis
+             else "no diagnosis yet" if in_progress else "no fault certain enough")
+    ident = (clean_text(record.diagnosis) if record.diagnosis
+             and _name(record.diagnosis, names) != record.diagnosis else None)
+    return words, ident, format_probability(record.probability)
 
 
 def _vehicle_facts(record: SessionRecord) -> list[tuple[str, str]]:
@@ -170,19 +198,16 @@ def report_content(record: SessionRecord, names: Mapping[str, str] | None = None
                         + (f", healthy {healthy}" if healthy else "")
                         + f": {clean_text(last.verdict or 'no verdict')}"
                         f" (step {last.index}, {format_stamp(last.at)})")
+    diagnosis, diagnosis_id, diagnosis_probability = _diagnosis_words(record, names, in_progress)
     return ReportContent(
         title=f"Electrical fault diagnosis report: session {clean_text(record.id)}",
         in_progress=in_progress, status_line=status,
         integrity_problem=problem,
         facts=tuple(facts),
-        diagnosis=(_name(record.diagnosis, names) if record.diagnosis
-                   else "no diagnosis yet" if in_progress else "no fault certain enough"),
-        diagnosis_id=(clean_text(record.diagnosis) if record.diagnosis
-                      and _name(record.diagnosis, names) != record.diagnosis else None),
-        diagnosis_probability=format_probability(record.probability),
+        diagnosis=diagnosis, diagnosis_id=diagnosis_id, diagnosis_probability=diagnosis_probability,
         stopped_because=clean_text(record.stopped_because or ""),
         alternatives=tuple((_name(h, names), format_probability(p)) for h, p in record.alternatives),
-        cannot_tell_apart=tuple(_name(f, names) for f in record.ambiguity_group
+        cannot_tell_apart=tuple(_member(f, names) for f in record.ambiguity_group
                                 if f != record.diagnosis),
         repair=clean_text(record.repair or "") or ("not yet done" if in_progress else "none recorded"),
         verification=verification or ("not yet made" if in_progress else "none recorded"),
@@ -236,7 +261,8 @@ def report_html(record: SessionRecord, names: Mapping[str, str] | None = None) -
     prob = f" ({_e(c.diagnosis_probability)})" if c.diagnosis_probability else ""
     parts.append(f'<p class="diagnosis">{_e(c.diagnosis)}{prob}</p>')
     if c.diagnosis_id:
-        parts.append(f"<p>Fault id: <code>{_e(c.diagnosis_id)}</code></p>")
+        label = "Fault ids" if ", " in c.diagnosis_id else "Fault id"
+        parts.append(f"<p>{label}: <code>{_e(c.diagnosis_id)}</code></p>")
     if c.stopped_because:
         parts.append(f"<p>Stopped because: {_e(c.stopped_because)}</p>")
     if c.alternatives:
@@ -244,7 +270,7 @@ def report_html(record: SessionRecord, names: Mapping[str, str] | None = None) -
         parts += [f"<tr><th>{_e(h)}</th><td>{_e(p)}</td></tr>" for h, p in c.alternatives]
         parts.append("</table>")
     if c.cannot_tell_apart:
-        parts.append("<p>No test of the ruleset can tell the diagnosis from: "
+        parts.append(f"<p>{CANNOT_TELL_APART}: "
                      f"{_e('; '.join(c.cannot_tell_apart))}.</p>")
     parts.append(f"<h2>Repair</h2><p>{_e(c.repair)}</p>")
     parts.append(f"<h2>Verification</h2><p>{_e(c.verification)}</p>")

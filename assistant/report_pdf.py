@@ -33,6 +33,7 @@ from reportlab.platypus import (
     TableStyle,
 )
 
+from assistant.display import CANNOT_TELL_APART
 from assistant.trail import PNG_DPI
 
 if TYPE_CHECKING:
@@ -191,14 +192,15 @@ def pdf_from_content(content: ReportContent, trail_png: bytes | None,
     block: list[Flowable] = [Paragraph("Diagnosis", st["h2"]),
                              Paragraph(_p(content.diagnosis + prob), st["diagnosis"])]
     if content.diagnosis_id:
-        block.append(Paragraph(_p("Fault id: " + content.diagnosis_id), st["body"]))
+        label = "Fault ids: " if ", " in content.diagnosis_id else "Fault id: "
+        block.append(Paragraph(_p(label + content.diagnosis_id), st["body"]))
     if content.stopped_because:
         block.append(Paragraph(_p("Stopped because: " + content.stopped_because), st["body"]))
     if content.alternatives:
         block += [Spacer(1, 2 * mm), Paragraph("Alternatives left:", st["body"]),
                   _facts_table(content.alternatives, st)]
     if content.cannot_tell_apart:
-        block.append(Paragraph(_p("No test of the ruleset can tell the diagnosis from: "
+        block.append(Paragraph(_p(CANNOT_TELL_APART + ": "
                                   + "; ".join(content.cannot_tell_apart) + "."), st["body"]))
     story.append(KeepTogether(block))
     story += [Paragraph("Repair", st["h2"]), Paragraph(_p(content.repair), st["body"]),

@@ -360,6 +360,7 @@ class Session:
             probability=float(conclusion.probability), alternatives=alternatives,
             stopped_because=conclusion.stopped_because, repair=repair,
             ambiguity_group=tuple(getattr(conclusion, "group", ())),
+            group_probability=float(conclusion.group_probability) if getattr(conclusion, "group", ()) else None,
             cautions=self.engine.pages.session_cautions(getattr(self.diagnosis, "cautions", ())),
         )
         self._record = self.store.load(self.id)
@@ -426,8 +427,8 @@ def summary_json(record: SessionRecord) -> dict[str, Any]:
                       "unit": step.unit, "top": [[h, p] for h, p in step.top]})
     return {"session": record.id, "ruleset": record.ruleset_id, "status": record.status,
             "diagnosis": record.diagnosis, "probability": record.probability,
-            "ambiguity_group": list(record.ambiguity_group), "steps": steps,
-            "stopped_because": record.stopped_because}
+            "ambiguity_group": list(record.ambiguity_group), "group_probability": record.group_probability,
+            "steps": steps, "stopped_because": record.stopped_because}
 
 
 def session_json(record: SessionRecord) -> dict[str, Any]:
@@ -440,5 +441,6 @@ def session_json(record: SessionRecord) -> dict[str, Any]:
             "complaint": record.complaint, "fault_codes": list(record.fault_codes), "started": record.started,
             "finished": record.finished, "status": record.status, "step_count": len(record.steps),
             "diagnosis": record.diagnosis, "probability": record.probability,
-            "ambiguity_group": list(record.ambiguity_group), "steps": steps}
+            "ambiguity_group": list(record.ambiguity_group), "group_probability": record.group_probability,
+            "steps": steps}
 

@@ -123,6 +123,7 @@ class SimulationResult:
 
 
 def _named(conclusion: Conclusion) -> str:
+    """The fault a run named: the diagnosis (the most probable member of a group), else the top."""
     return conclusion.diagnosis if conclusion.diagnosis is not None else conclusion.ranking[0][0]
 
 
@@ -181,7 +182,7 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
             read = walk_readings(draws)
             conclusion, n_tests, minutes = run_planner(start, read)
             named = table.hypothesis_index(_named(conclusion))
-            acc[h] += named == h or named in group_of.get(h, ())
+            acc[h] += named == h or named in group_of.get(h, ()) or hyps[h].id in conclusion.group
             tests_used[h] += n_tests
             minutes_used[h] += minutes
             undecided[h] += conclusion.diagnosis is None

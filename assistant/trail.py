@@ -206,7 +206,18 @@ def _conclusion_rows(step: Step, record: SessionRecord, names: Mapping[str, str]
     ranking = step.top or (((record.diagnosis, record.probability or 0.0),)
                            if record.diagnosis else ())
     best = ranking[0] if ranking else None
-    if record.diagnosis is not None:
+    group = tuple(record.ambiguity_group) if len(record.ambiguity_group) > 1 else ()
+    if record.diagnosis is not None and group:
+        # a group the tests cannot tell apart: "one of", never a single certain part
+        members = ", ".join("no fault" if f == "none" else _name(f, names) for f in group)
+        together = (f" together {_nbsp(format_probability(record.group_probability))}"
+                    if record.group_probability is not None else "")
+        lead = ("<B>no fault found beyond what the tests can resolve</B>: one of "
+                if "none" in group else "<B>one of:</B> ")
+        verdict = (lead + html_text(members) + together + "; most likely "
+                   + html_text("no fault" if record.diagnosis == "none" else _name(record.diagnosis, names))
+                   + f"\xa0{_nbsp(format_probability(record.probability))}")
+    elif record.diagnosis is not None:
         verdict = (f"<B>{html_text(_name(record.diagnosis, names))}</B>  "
                    f"{format_probability(record.probability)}")
     elif best is not None:

@@ -93,3 +93,17 @@ def test_verdicts(stop_pages: PageMaker, reading: Reading, says: str) -> None:
     if says == "in range":
         reading = Reading("mid", value=(page.healthy_low + page.healthy_high) / 2)  # type: ignore[operator]
     assert verdict(reading, page) == says
+
+
+def test_a_group_conclusion_closes_as_one_of_its_members(stop_pages: PageMaker) -> None:
+    from assistant.diagnosis import Conclusion
+    from assistant.page import render_closing
+
+    group = ("lamp_high.high_resistance", "none", "w_high_gnd.high_resistance")
+    conclusion = Conclusion("lamp_high.high_resistance", 0.54, "no test can change the answer", (), (), None,
+                            group, 0.995)
+    text = render_closing(stop_pages.closing(conclusion, None))  # type: ignore[arg-type]
+    assert ("No fault found beyond what the tests can resolve: one of lamp_high.high_resistance, none, "
+            "w_high_gnd.high_resistance, together 99.5%") in text
+    assert "most likely lamp_high.high_resistance, 54.0%" in text
+    assert "Diagnosis: lamp_high.high_resistance" not in text  # not one certain part

@@ -58,11 +58,41 @@ def test_stop_at_threshold_and_when_no_tests_are_left() -> None:
     p[TABLE.hypothesis_index("lamp.filament_open")] = 0.99
     stop = stop_check(p, MODEL, [1, 2], PlannerSettings(), 0.5)
     assert stop is not None and stop.reason == "threshold reached" and stop.certain
-    stop = stop_check(PRIOR, MODEL, [], PlannerSettings(), None)
+    every = range(len(TABLE.tests))
+    stop = stop_check(PRIOR, MODEL, [], PlannerSettings(), None, skipped=every)  # skipped ones could tell
     assert stop is not None and stop.reason == "no tests left" and not stop.certain
     stop = stop_check(PRIOR, MODEL, [1], PlannerSettings(min_gain_bits=0.5), 0.1)
     assert stop is not None and stop.reason == "no test can change the answer"
     assert stop_check(PRIOR, MODEL, [1], PlannerSettings(), 0.3) is None
+
+
+def _left_with(weights: dict[str, float]) -> np.ndarray:
+    p = np.full(len(TABLE.hypotheses), 1e-6)
+    for h, w in weights.items():
+        p[TABLE.hypothesis_index(h)] = w
+    return p / p.sum()
+
+
+def test_faults_left_that_no_test_left_tells_apart_are_the_conclusion() -> None:
+    # a blown fuse and an open feed differ only in the fuse's look: once that is answered,
+    # nothing left tells them apart, and together they reach the threshold
+    p = _left_with({"fuse.blown": 0.6, "feed.open": 0.38})
+    rest = [t for t, info in enumerate(TABLE.tests) if info.id != "look_fuse"]
+    look = [t for t, info in enumerate(TABLE.tests) if info.id == "look_fuse"]
+    best = float(gains(p, MODEL, rest).max())
+    assert best < PlannerSettings().min_gain_bits
+    stop = stop_check(p, MODEL, rest, PlannerSettings(), best)
+    assert stop is not None and stop.certain and stop.reason.startswith("no test can change the answer")
+    ids = [TABLE.hypotheses[h].id for h in stop.group]
+    assert ids[:2] == ["fuse.blown", "feed.open"]  # most probable first
+    assert "feed.short_to_ground" in ids  # no test of the ruleset tells it from the blown fuse
+    # the look at the fuse skipped rather than answered: it could still tell them apart
+    stop = stop_check(p, MODEL, rest, PlannerSettings(), best, skipped=look)
+    assert stop is not None and not stop.certain and stop.reason == "no test can change the answer"
+    # spread over faults the tests left do tell apart: no group
+    spread = _left_with({"fuse.blown": 0.5, "lamp.filament_open": 0.48})
+    stop = stop_check(spread, MODEL, rest, PlannerSettings(min_gain_bits=5.0), 0.1)
+    assert stop is not None and not stop.certain
 
 
 def test_faults_no_test_can_tell_apart_form_a_group() -> None:

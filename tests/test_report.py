@@ -275,10 +275,27 @@ def test_the_report_names_tests_and_faults_from_the_unchanged_ruleset(tmp_path: 
 
 def test_faults_that_no_test_tells_apart_are_named() -> None:
     record = load_session().model_copy(update={
-        "ambiguity_group": ("w_left_gnd.high_resistance", "lamp_left.high_resistance")})
-    expected = "No test of the ruleset can tell the diagnosis from: lamp_left.high_resistance."
-    assert expected in report_html(record)
-    assert expected in pdf_text(render_report(record, "pdf"))
+        "ambiguity_group": ("w_left_gnd.high_resistance", "lamp_left.high_resistance"),
+        "group_probability": 0.993})
+    page, pdf = report_html(record), pdf_text(render_report(record, "pdf"))
+    for expected in ("No test left can tell the diagnosis from: lamp_left.high_resistance.",
+                     "One of: w_left_gnd.high_resistance; lamp_left.high_resistance (together 99.3 %; "
+                     "most likely w_left_gnd.high_resistance 98.1 %)"):
+        assert expected in page
+        assert expected in pdf
+    # shown as a group, never as one certain part
+    assert '<p class="diagnosis">w_left_gnd.high_resistance (98.1 %)</p>' not in page
+    assert "Fault ids: <code>w_left_gnd.high_resistance, lamp_left.high_resistance</code>" in page
+
+
+def test_no_fault_in_a_group_says_what_the_tests_cannot_resolve() -> None:
+    record = load_session().model_copy(update={
+        "diagnosis": "lamp_left.high_resistance", "probability": 0.54,
+        "ambiguity_group": ("lamp_left.high_resistance", "none"), "group_probability": 0.97})
+    content = report_content(record)
+    assert content.diagnosis == ("No fault found beyond what the tests can resolve: one of "
+                                 "lamp_left.high_resistance; no fault")
+    assert content.diagnosis_probability == "together 97.0 %; most likely lamp_left.high_resistance 54.0 %"
 
 
 def test_observation_steps_and_the_verification_test_read_plainly() -> None:

@@ -191,8 +191,8 @@ def test_summary_json_shape(tmp_path: Path, store: Store) -> None:
     source = Scripted([Skip(), Answer("yes")])
     record = Session.begin(store, fake_engine(tmp_path), source, session_id="s1").run(source)
     data = summary_json(record)
-    assert set(data) == {"session", "ruleset", "status", "diagnosis", "probability", "ambiguity_group", "steps",
-                         "stopped_because"}
+    assert set(data) == {"session", "ruleset", "status", "diagnosis", "probability", "ambiguity_group",
+                         "group_probability", "steps", "stopped_because"}
     assert data["session"] == "s1" and data["ruleset"] == "fake"
     assert data["steps"][0] == {"test": "t_volts", "kind": "skip", "reading": None, "unit": None,
                                 "top": [["gnd.high_resistance", 0.5], ["lamp.open", 0.4], ["none", 0.1]]}

@@ -197,6 +197,20 @@ def test_a_conclusion_without_a_certain_fault_says_so() -> None:
     assert "<B>abandoned</B> before a conclusion" in source
 
 
+def test_a_group_conclusion_reads_one_of_its_members() -> None:
+    record = load_session().model_copy(update={
+        "ambiguity_group": ("w_left_gnd.high_resistance", "lamp_left.high_resistance"),
+        "group_probability": 0.993})
+    source = dot_source(record)
+    for part in ("<B>one of:</B> w_left_gnd.high_resistance,", "lamp_left.high_resistance together 99.3\xa0%",
+                 "most likely w_left_gnd.high_resistance\xa098.1\xa0%"):  # the members wrap to the box
+        assert part in source
+    assert "<B>w_left_gnd.high_resistance</B>  98.1 %" not in source  # not as one certain part
+    with_none = record.model_copy(update={"ambiguity_group": ("w_left_gnd.high_resistance", "none")})
+    assert ("<B>no fault found beyond what the tests can resolve</B>: one of w_left_gnd.high_resistance,"
+            in dot_source(with_none))
+
+
 def test_the_conclusion_names_the_test_that_is_to_prove_the_repair() -> None:
     record = load_session()
     steps = list(record.steps)

@@ -4,7 +4,8 @@ A relay contact closes when its coil carries at least its pull-in current (a nor
 one opens) and holds until the coil current falls below 40 % of it (drop-out, from memory); a
 relay that its own load makes chatter (a weak supply collapses when the contact closes) is taken
 as at rest. A fuse whose current exceeds rating × blow_factor is blown and the circuit solved
-again with it open; a motor that the supply would not drive forward against its back-EMF is
+again with it open (of several overloaded fuses in one variant, the most overloaded goes first,
+as the branch fuse clears a short before the fuse feeding it); a motor that the supply would not drive forward against its back-EMF is
 taken as stopped (a motor nothing drives does not generate). Each variant of the batch settles on its own. Fuses and motors only change one
 way (a blown fuse stays blown, a stopped motor stays stopped), so every variant settles.
 
@@ -18,6 +19,7 @@ from __future__ import annotations
 import logging
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -54,6 +56,21 @@ class OperatingPoint:
 
     def probe(self, a: str, b: str) -> int:
         return self.probes.index((a, b))
+
+
+def _blow_most_overloaded(fuses: Sequence[Any], point: OperatingPoint,
+                          blown: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """The fuses blown after this round: in each variant, of the fuses carrying more than their
+    blow current, only the most overloaded one goes (a fuse's time to blow falls steeply with
+    its overload, so a 10 A branch fuse clears a dead short long before the 30 A fuse feeding
+    it: the selectivity of fuses in series, common practice); the circuit is then solved again
+    and a fuse still overloaded goes in a later round."""
+    if not fuses:
+        return dict(blown)
+    ratio = np.stack([np.abs(point.current(f.id)) / f.blow_amps for f in fuses])  # (F, B)
+    over = ratio > 1.0
+    worst = np.argmax(np.where(over, ratio, 0.0), axis=0)
+    return {f.id: blown[f.id] | (over[i] & (worst == i)) for i, f in enumerate(fuses)}
 
 
 def operate(
@@ -116,7 +133,7 @@ def operate(
             toggles[c.id] = toggles[c.id] + (now != pulled[c.id])
             # a relay its own load makes chatter cannot hold in: taken as at rest
             new_pulled[c.id] = now & (toggles[c.id] < CHATTER_TOGGLES)
-        new_blown = {f.id: blown_now[f.id] | (np.abs(point.current(f.id)) > f.blow_amps) for f in model.fuses}
+        new_blown = _blow_most_overloaded(model.fuses, point, blown_now)
         new_stalled = stalled
         changed = _changed(new_pulled, pulled, B) | _changed(new_blown, blown_now, B)
         if not changed.any():
