@@ -72,36 +72,30 @@ def _ascending(ranges: tuple[Any, ...]) -> tuple[Any, ...]:
     return ranges
 
 
-class DcVolts(_Frozen):
+class _Ranged(_Frozen):
+    """A meter function with ranges, listed lowest first; a range may be written as its span alone."""
+
+    @field_validator("ranges", mode="before", check_fields=False)
+    @classmethod
+    def _short(cls, value: Any) -> Any:
+        return [_span_shorthand(v) for v in value] if isinstance(value, list) else value
+
+    @field_validator("ranges", check_fields=False)
+    @classmethod
+    def _ordered(cls, value: tuple[Any, ...]) -> tuple[Any, ...]:
+        return _ascending(value)
+
+
+class DcVolts(_Ranged):
     input_resistance: Ohms = Field(default=10e6, gt=0)
     accuracy: Accuracy
     ranges: tuple[VoltRange, ...] = Field(min_length=1)
 
-    @field_validator("ranges", mode="before")
-    @classmethod
-    def _short(cls, value: Any) -> Any:
-        return [_span_shorthand(v) for v in value] if isinstance(value, list) else value
 
-    @field_validator("ranges")
-    @classmethod
-    def _ordered(cls, value: tuple[Any, ...]) -> tuple[Any, ...]:
-        return _ascending(value)
-
-
-class Resistance(_Frozen):
+class Resistance(_Ranged):
     lead_resistance: Ohms = Field(default=0.2, ge=0, description="both test leads, added to every reading")
     accuracy: Accuracy
     ranges: tuple[OhmRange, ...] = Field(min_length=1)
-
-    @field_validator("ranges", mode="before")
-    @classmethod
-    def _short(cls, value: Any) -> Any:
-        return [_span_shorthand(v) for v in value] if isinstance(value, list) else value
-
-    @field_validator("ranges")
-    @classmethod
-    def _ordered(cls, value: tuple[Any, ...]) -> tuple[Any, ...]:
-        return _ascending(value)
 
 
 class CurrentJack(_Frozen):
@@ -119,19 +113,9 @@ class DcAmps(_Frozen):
     jacks: dict[Literal["mA", "10A"], CurrentJack] = Field(min_length=1)
 
 
-class Clamp(_Frozen):
+class Clamp(_Ranged):
     accuracy: Accuracy
     ranges: tuple[AmpRange, ...] = Field(min_length=1)
-
-    @field_validator("ranges", mode="before")
-    @classmethod
-    def _short(cls, value: Any) -> Any:
-        return [_span_shorthand(v) for v in value] if isinstance(value, list) else value
-
-    @field_validator("ranges")
-    @classmethod
-    def _ordered(cls, value: tuple[Any, ...]) -> tuple[Any, ...]:
-        return _ascending(value)
 
 
 class MeterProfile(_Frozen):

@@ -206,7 +206,7 @@ class RuleEngine:
                     try:
                         host.assert_fact(self.name, dict(message, sid=sid))
                     except _durable_engine.MessageObservedException:
-                        pass  # the same fact twice: once is enough
+                        continue  # the same fact twice: once is enough
                 state = host.get_state(self.name, sid)
             except RulesEngineError:
                 raise
