@@ -19,6 +19,7 @@ from typing import Any
 
 import graphviz
 
+from assistant.circuit.components import lamp_hot_ohms, wire_ohms
 from assistant.errors import OhmtrailError, OutputError
 from assistant.ruleset.model import (
     Battery,
@@ -48,9 +49,6 @@ from assistant.ruleset.model import (
 log = logging.getLogger("ohmtrail.netgraph")
 
 FORMATS = ("svg", "png", "pdf", "dot")
-# International Annealed Copper Standard: 1.7241e-8 ohm·m at 20 °C, 0.00393 /K.
-_COPPER_OHM_M = 1.7241e-8
-_COPPER_ALPHA = 0.00393
 # Parts drawn as boxes (sources, three-terminal parts, relays); the rest as lines between nodes.
 _BOXED = frozenset({"battery", "module_supply", "sensor", "relay_contact", "relay_coil"})
 _TERMINALS = {
@@ -69,11 +67,6 @@ def si(value: float, unit: str) -> str:
         if abs(value) >= factor * 0.9995:
             return f"{value / factor:.4g} {prefix}{symbol}"
     return f"{value:.4g} {symbol}"
-
-
-def wire_ohms(length_m: float, section_m2: float, temperature_c: float = 20.0) -> float:
-    """Resistance of a copper wire run (IACS resistivity and temperature coefficient)."""
-    return _COPPER_OHM_M * length_m / section_m2 * (1 + _COPPER_ALPHA * (temperature_c - 20.0))
 
 
 def _battery(c: Battery, rs: Ruleset) -> str:
@@ -108,7 +101,7 @@ def _relay_coil(c: RelayCoil, rs: Ruleset) -> str:
 def _lamp(c: Lamp, rs: Ruleset) -> str:
     volts = c.rated_voltage or rs.system_voltage
     cat = f" {c.lamp_category}" if c.lamp_category else ""
-    return f"{si(c.rating, 'W')}{cat} at {si(volts, 'V')}, hot {si(volts * volts / c.rating, 'ohm')}"
+    return f"{si(c.rating, 'W')}{cat} at {si(volts, 'V')}, hot {si(lamp_hot_ohms(c.rating, volts), 'ohm')}"
 
 
 def _motor(c: Motor, rs: Ruleset) -> str:
