@@ -23,6 +23,7 @@ from weakref import WeakKeyDictionary
 import numpy as np
 
 from assistant.beliefs import EvidenceModel, TestOutcomes, format_value
+from assistant.disjoint import DisjointSets
 
 ALIVE = 1e-10  # hypotheses below this probability are left out of the gain sums
 AMBIGUITY_TOLERANCE = 0.25  # total-variation distance under which two rows count as the same
@@ -202,20 +203,13 @@ def indistinguishable(model: EvidenceModel, h: int, among: Sequence[int] | np.nd
 def ambiguity_groups(model: EvidenceModel, tolerance: float = AMBIGUITY_TOLERANCE) -> list[list[int]]:
     """Sets of hypotheses no test tells apart (each of two or more), joined transitively."""
     n = model.n_hypotheses
-    parent = list(range(n))
-
-    def find(i: int) -> int:
-        while parent[i] != i:
-            parent[i] = parent[parent[i]]
-            i = parent[i]
-        return i
-
+    sets: DisjointSets[int] = DisjointSets()
     for h in range(n):
         for other in indistinguishable(model, h, np.arange(h + 1, n), tolerance=tolerance):
-            parent[find(int(other))] = find(h)
+            sets.union(int(other), h)
     groups: dict[int, list[int]] = {}
     for h in range(n):
-        groups.setdefault(find(h), []).append(h)
+        groups.setdefault(sets.find(h), []).append(h)
     return [g for g in groups.values() if len(g) > 1]
 
 

@@ -32,6 +32,7 @@ from typing import Any
 import numpy as np
 
 from assistant.circuit.elimination import Elimination
+from assistant.disjoint import DisjointSets
 from assistant.errors import CircuitError
 
 GROUND = 0  # node index of the reference
@@ -398,29 +399,20 @@ def _check_zero_ohm_loops(net: Netlist) -> None:
         return
     mask = np.stack([net.branches[j].active & (net.branches[j].ohms <= 0) for j in zero], axis=1)
     for pattern in np.unique(mask, axis=0):
-        parent: dict[int, int] = {}
-
-        def find(x: int) -> int:
-            while parent.setdefault(x, x) != x:
-                parent[x] = parent[parent[x]]
-                x = parent[x]
-            return x
-
+        sets: DisjointSets[int] = DisjointSets()
         used: list[int] = []
         for on, j in zip(pattern, zero, strict=True):
             if not on:
                 continue
             br = net.branches[j]
-            ra, rb = find(br.a), find(br.b)
             used.append(j)
-            if ra == rb:
+            if not sets.union(br.a, br.b):
                 loop = _loop_owners(net, used, br.a)
                 raise CircuitError(
                     "a loop of zero-resistance parts (" + ", ".join(loop) + ") leaves its currents "
                     "undefined; give one of them its resistance",
                     components=loop,
                 )
-            parent[ra] = rb
 
 
 def _loop_owners(net: Netlist, used: list[int], node: int) -> list[str]:

@@ -12,6 +12,7 @@ from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
+from assistant.disjoint import DisjointSets
 from assistant.errors import Problem, RulesetError
 from assistant.ruleset.defaults import DEFAULT_MODES, fault_list
 from assistant.ruleset.load import LoadedRuleset, load_ruleset, ruleset_files
@@ -251,19 +252,12 @@ class _Checker:
             for comp in conducting:
                 if comp.id in in_loop:
                     continue
-                parent: dict[str, str] = {}
-
-                def find(x: str) -> str:
-                    while parent.setdefault(x, x) != x:
-                        parent[x] = parent[parent[x]]
-                        x = parent[x]
-                    return x
-
+                sets: DisjointSets[str] = DisjointSets()
                 for other in conducting:
                     if other is not comp:
                         for node in other.nodes[1:]:
-                            parent[find(node)] = find(other.nodes[0])
-                if all(find(n) == find(comp.nodes[0]) for n in comp.nodes[1:]):
+                            sets.union(node, other.nodes[0])
+                if all(sets.joined(n, comp.nodes[0]) for n in comp.nodes[1:]):
                     in_loop.add(comp.id)
         for i, comp in enumerate(self.rs.components):
             if comp.type == "switch" and comp.id not in closing:
