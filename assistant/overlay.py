@@ -22,21 +22,19 @@ automatically (first); ``--overlay FILE`` adds more. Applying returns a new froz
 from __future__ import annotations
 
 import dataclasses
-import hashlib
 import logging
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
-from pydantic import Field, ValidationError
-from ruamel.yaml.comments import CommentedMap
+from pydantic import Field
 
 from assistant.errors import RulesetError
 from assistant.predict import Hypothesis, PredictionTable
 from assistant.ruleset.defaults import fault_list
 from assistant.ruleset.lint import allowed_modes
-from assistant.ruleset.load import Locator, parse_yaml, read_text, to_plain, validation_problems
+from assistant.ruleset.load import Locator, load_document
 from assistant.ruleset.model import FaultId, FaultSpec, Frozen, Identifier, Ruleset
 
 log = logging.getLogger("ohmtrail.overlay")
@@ -83,19 +81,9 @@ def beside_path(ruleset_path: str | Path) -> Path:
 
 def load_overlay(path: str | Path) -> LoadedOverlay:
     """Read and validate an overlay file; every problem is a located :class:`RulesetError`."""
-    name = str(path)
-    data, text = read_text(Path(path))
-    tree = parse_yaml(text, name)
-    locator = Locator(name, tree)
-    if not isinstance(tree, CommentedMap):
-        raise RulesetError("an overlay is a YAML mapping (keys 'overlay:', 'ruleset:', 'weights:')",
-                           file=name, line=1, column=1)
-    plain = to_plain(tree, locator)
-    try:
-        overlay = Overlay.model_validate(plain)
-    except ValidationError as exc:
-        raise RulesetError.from_problems(validation_problems(exc, locator)) from exc
-    return LoadedOverlay(overlay, name, hashlib.sha256(data).hexdigest(), locator)
+    overlay, sha256, locator = load_document(
+        path, Overlay, "an overlay is a YAML mapping (keys 'overlay:', 'ruleset:', 'weights:')")
+    return LoadedOverlay(overlay, str(path), sha256, locator)
 
 
 def apply_overlay(ruleset: Ruleset, loaded: LoadedOverlay, ruleset_sha256: str | None = None) -> Ruleset:

@@ -22,9 +22,9 @@ import re
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
-from pydantic import ValidationError
+from pydantic import BaseModel, ValidationError
 from ruamel.yaml import YAML
 from ruamel.yaml.comments import CommentedMap, CommentedOrderedMap, CommentedSeq, TaggedScalar
 from ruamel.yaml.error import MarkedYAMLError, YAMLError
@@ -160,7 +160,7 @@ def read_text(path: Path, error: type[RulesetError] = RulesetError) -> tuple[byt
     try:
         data = path.read_bytes()
     except FileNotFoundError as exc:
-        raise error(f"no such file", file=name) from exc
+        raise error("no such file", file=name) from exc
     except IsADirectoryError as exc:
         raise error("is a folder, not a file", file=name) from exc
     except OSError as exc:
@@ -396,21 +396,33 @@ def load_ruleset(path: str | Path, overlays: Sequence[str | Path] = (), *, besid
                          tuple(o.label for o in found), tuple(o.sha256 for o in found))
 
 
-def _load_plain(path: str | Path) -> LoadedRuleset:
-    p = Path(path)
+M = TypeVar("M", bound=BaseModel)
+
+
+def load_document(path: str | Path, model: type[M], not_a_mapping: str) -> tuple[M, str, Locator]:
+    """A YAML file validated as ``model``: the model, the SHA-256 of the file's bytes, its positions.
+
+    ``not_a_mapping`` is the message for a file whose top level is not a mapping.
+    Every problem is a located :class:`RulesetError`.
+    """
     name = str(path)
-    data, text = read_text(p)
+    data, text = read_text(Path(path))
     tree = parse_yaml(text, name)
     locator = Locator(name, tree)
     if not isinstance(tree, CommentedMap):
-        raise RulesetError("a ruleset is a YAML mapping (keys like 'id:' and 'components:')", file=name,
-                           line=1, column=1)
+        raise RulesetError(not_a_mapping, file=name, line=1, column=1)
     plain = to_plain(tree, locator)
     try:
-        ruleset = Ruleset.model_validate(plain)
+        document = model.model_validate(plain)
     except ValidationError as exc:
         raise RulesetError.from_problems(validation_problems(exc, locator)) from exc
-    return LoadedRuleset(ruleset, name, hashlib.sha256(data).hexdigest(), locator)
+    return document, hashlib.sha256(data).hexdigest(), locator
+
+
+def _load_plain(path: str | Path) -> LoadedRuleset:
+    ruleset, sha256, locator = load_document(
+        path, Ruleset, "a ruleset is a YAML mapping (keys like 'id:' and 'components:')")
+    return LoadedRuleset(ruleset, str(path), sha256, locator)
 
 
 def ruleset_files(paths: Iterable[str | Path]) -> Iterator[Path]:
