@@ -124,7 +124,9 @@ def voltage_path(ruleset: Ruleset, table: PredictionTable) -> list[int]:
                     queue.append(nxt)
     voltage = [t for t in ruleset.tests if isinstance(t, VoltageTest) and t.reference in (None, ruleset.ground)]
     states = [t.state for t in voltage]
-    working = max(set(states), key=states.count) if states else None  # the state the walk is made in
+    # the state the walk is made in: the commonest, the first in ruleset order on a tie (a set here
+    # made the walk depend on the string-hash seed of the process)
+    working = max(dict.fromkeys(states), key=states.count) if states else None
     chosen: dict[str, VoltageTest] = {}
     for test in voltage:  # one test per point, in the working state where there is a choice
         if test.at not in chosen or (test.state == working and chosen[test.at].state != working):

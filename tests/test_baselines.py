@@ -4,6 +4,9 @@ from __future__ import annotations
 
 import heapq
 import itertools
+import os
+import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -92,6 +95,18 @@ def test_voltage_path_runs_from_the_supply_outward() -> None:
     ids = [table.tests[t].id for t in voltage_path(STOP_LAMPS.ruleset, table)]
     assert ids[:4] == ["v_fuse", "v_switch_in", "v_switch_out", "v_splice"]  # pedal pressed at SW_OUT
     assert set(ids[4:]) == {"v_left_feed", "v_right_feed", "v_high_feed"}
+
+
+def test_voltage_path_is_the_same_in_every_process() -> None:
+    # The blower's voltage tests are made in speed4 and in speed1 three times each: the walk is
+    # made in the first of the two in ruleset order, whatever the process's string-hash seed.
+    root = Path(__file__).resolve().parent.parent
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(root), str(root / "tests")])}
+    child = [sys.executable, str(root / "tests" / "children" / "walk_path.py"), "rulesets/motor/blower.yaml"]
+    printed = {subprocess.run(child, cwd=root, env={**env, "PYTHONHASHSEED": seed}, capture_output=True,
+                              text=True, check=True).stdout for seed in ("1", "2", "3", "4")}
+    assert len(printed) == 1
+    assert "v_m_pos" in printed.pop()  # a speed4 test: speed4 comes first in the ruleset
 
 
 def _reader(table, good_upto: int, path: list[int]):  # type: ignore[no-untyped-def]
