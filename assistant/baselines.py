@@ -24,6 +24,7 @@ import numpy as np
 
 from assistant.beliefs import EvidenceModel
 from assistant.predict import PredictionTable
+from assistant.preparation import sequence_minutes
 from assistant.reading import Reading
 from assistant.ruleset.model import Ruleset, VoltageTest
 
@@ -35,26 +36,30 @@ class _OutOfTime(Exception):
 
 
 def optimal_cost(outcomes: np.ndarray, priors: np.ndarray, costs: Sequence[float], threshold: float,
-                 *, time_limit: float = 60.0) -> float | None:
+                 *, time_limit: float = 60.0,
+                 prepare: Sequence[Sequence[tuple[str, float]]] | None = None) -> float | None:
     """Least expected cost (prior-weighted) to reach the stop on a noise-free problem.
 
     ``outcomes[h, t]`` is the outcome (an integer) test ``t`` shows under hypothesis ``h``. A set
     of hypotheses left is done when its most probable member holds ``threshold`` of its
-    probability, or when no test splits it. None if the search does not finish in ``time_limit``
+    probability, or when no test splits it. ``prepare[t]``: the preparations test ``t`` needs with
+    their minutes, paid by the first test that needs each (the search then runs over the sets of
+    hypotheses and of preparations made). None if the search does not finish in ``time_limit``
     seconds.
     """
     out = np.asarray(outcomes)
     p = np.asarray(priors, dtype=float)
     c = np.asarray(costs, dtype=float)
+    needs = [tuple(prepare[t]) if prepare is not None else () for t in range(out.shape[1])]
     live = [h for h in range(p.size) if p[h] > 0]
     if not live:
         return 0.0
     deadline = time.monotonic() + time_limit
-    memo: dict[frozenset[int], float] = {}
+    memo: dict[tuple[frozenset[int], frozenset[str]], float] = {}
     columns = [out[:, t] for t in range(out.shape[1])]
 
-    def value(members: frozenset[int]) -> float:
-        found = memo.get(members)
+    def value(members: frozenset[int], made: frozenset[str]) -> float:
+        found = memo.get((members, made))
         if found is not None:
             return found
         if time.monotonic() > deadline:
@@ -69,22 +74,23 @@ def optimal_cost(outcomes: np.ndarray, priors: np.ndarray, costs: Sequence[float
                 parts: dict[int, list[int]] = {}
                 for h in idx:
                     parts.setdefault(int(col[h]), []).append(h)
-                if len(parts) < 2 or c[t] >= best:
+                cost = float(c[t]) + sum(m for ref, m in needs[t] if ref not in made)
+                if len(parts) < 2 or cost >= best:
                     continue
-                cost = float(c[t])
+                after = made | {ref for ref, _ in needs[t]} if needs[t] else made
                 for part in parts.values():
                     share = float(p[part].sum()) / total
-                    cost += share * value(frozenset(part))
+                    cost += share * value(frozenset(part), after)
                     if cost >= best:
                         break
                 best = min(best, cost)
             if best == float("inf"):
                 best = 0.0  # no test splits the set: stop
-        memo[members] = best
+        memo[(members, made)] = best
         return best
 
     try:
-        return value(frozenset(live))
+        return value(frozenset(live), frozenset())
     except _OutOfTime:
         return None
     except RecursionError:  # pragma: no cover - sets too deep to search
@@ -177,7 +183,7 @@ def linear_walk(table: PredictionTable, path: Sequence[int], read: Callable[[int
         taken.append(t)
         if is_good(table, t, read(t)):
             break
-    return WalkResult(tuple(taken), sum(table.tests[t].cost_minutes for t in taken))
+    return WalkResult(tuple(taken), sequence_minutes(table, taken))
 
 
 def half_split(table: PredictionTable, path: Sequence[int], read: Callable[[int], Reading]) -> WalkResult:
@@ -192,7 +198,7 @@ def half_split(table: PredictionTable, path: Sequence[int], read: Callable[[int]
             lo = mid
         else:
             hi = mid
-    return WalkResult(tuple(taken), sum(table.tests[t].cost_minutes for t in taken))
+    return WalkResult(tuple(taken), sequence_minutes(table, taken))
 
 
 def walk_readings(draws: Mapping[int, Reading]) -> Callable[[int], Reading]:

@@ -95,7 +95,7 @@ def run_case(loaded: LoadedRuleset, table: PredictionTable, case: Case, index: i
                                   tuple(skipped), minutes, (str(problem),))
             state = state.answer(test_id, reading)
             asked.append(test_id)
-            minutes += infos[test_id].cost_minutes
+            minutes += step.cost_minutes  # its preparations included
         else:
             state = state.skip(test_id)
             skipped.append(test_id)

@@ -49,13 +49,18 @@ def is_cranking(state_id: str | None, ruleset: Ruleset) -> bool:
 def cautions_for(ruleset: Ruleset, test: Any, extra: Iterable[str] = ()) -> tuple[str, ...]:
     """Every caution for one test of ``ruleset``, most specific first, each once.
 
-    The order: what the measurement kind needs, a cranking state, the test's own, its state's,
+    The order: what the measurement kind needs, a cranking state, the test's own, its
+    preparations', its state's,
     the ruleset's, ``extra`` (cautions decision rules raised), then the two for every page.
     """
     found: list[str] = list(BY_KIND.get(test.kind, ()))
     if is_cranking(test.state, ruleset):
         found.append(CRANKING)
     found.extend(test.cautions)
+    for ref in getattr(test, "prepare", ()):
+        prep = ruleset.preparations.get(ref)
+        if prep is not None:
+            found.extend(prep.cautions)
     state = ruleset.states.get(test.state) if test.state else None
     if state is not None:
         found.extend(state.cautions)

@@ -169,7 +169,7 @@ def isolation_minutes(loaded: LoadedRuleset, table: PredictionTable, hypothesis:
                 break
             t = index[step.test_id]
             state = state.answer(step.test_id, draw(table, hypothesis, t, rng))
-            spent += table.tests[t].cost_minutes
+            spent += step.cost_minutes  # its preparations included
             asked.add(step.test_id)
         minutes.append(spent)
     return float(np.mean(minutes)), right / runs, asked

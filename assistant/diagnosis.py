@@ -41,6 +41,7 @@ from assistant.planner import (
     verification_test,
 )
 from assistant.predict import PredictionTable
+from assistant.preparation import made_by, pending, test_minutes
 from assistant.reading import Reading
 from assistant.ruleset.load import LoadedRuleset
 from assistant.ruleset.model import Rule
@@ -80,6 +81,7 @@ class Proposal:
     cost_minutes: float
     why: Why
     remeasure: bool = False
+    prepare: tuple[tuple[str, float], ...] = ()  # preparations to make first, with their minutes (in the cost)
 
 
 @dataclass(frozen=True)
@@ -439,8 +441,9 @@ class Diagnosis:
                 return self._proposal(t, rule_id)
         recommended = [core.table.test_index(t) for t, _ in self._recommended
                        if any(x.id == t for x in tests)]
+        made = self.preparations_made()
         choice = choose_test(p, core.model, candidates, core.settings,
-                             current_state=self._current_state(), recommended=recommended)
+                             current_state=self._current_state(), recommended=recommended, made=made)
         skipped = [core.table.test_index(t) for t in self.skipped]
         stop = stop_check(p, core.model, candidates, core.settings,
                           choice.gain_bits if choice else None, skipped=skipped)
@@ -450,17 +453,25 @@ class Diagnosis:
         rule = next((r for t, r in self._recommended if t == tests[choice.test_index].id), None)
         why = (explain(p, core.model, choice, rule=rule) if explain_choice else
                Why(tests[choice.test_index].id, choice.gain_bits, choice.cost_minutes, (), (), (), rule))
-        return Proposal(tests[choice.test_index].id, choice.gain_bits, choice.cost_minutes, why)
+        return Proposal(tests[choice.test_index].id, choice.gain_bits, choice.cost_minutes, why,
+                        prepare=pending(tests[choice.test_index], made))
+
+    def preparations_made(self) -> frozenset[str]:
+        """The preparations the readings so far have made (see ``assistant.preparation``)."""
+        table = self._core.table
+        return made_by(table, (table.test_index(t) for t, _ in self.answered))
 
     def _proposal(self, t: int, rule_id: str | None, p: np.ndarray | None = None,
                   remeasure: bool = False) -> Proposal:
         core = self._core
         probs = self._posterior if p is None else p
         gain = expected_gain(probs, core.model.tests[t])
-        cost = core.table.tests[t].cost_minutes
+        info = core.table.tests[t]
+        made = self.preparations_made()
+        cost = test_minutes(info, made)
         choice = Choice(t, gain, cost, gain / cost)
-        return Proposal(core.table.tests[t].id, gain, cost, explain(probs, core.model, choice, rule=rule_id),
-                        remeasure)
+        return Proposal(info.id, gain, cost, explain(probs, core.model, choice, rule=rule_id),
+                        remeasure, pending(info, made))
 
     def remeasure(self, test_id: str) -> Proposal:
         """A proposal to make an answered test again; its gain is reckoned without the old reading."""

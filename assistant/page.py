@@ -15,6 +15,7 @@ from typing import TYPE_CHECKING, Any
 
 from assistant.cautions import cautions_for, session_cautions
 from assistant.display import format_quantity, format_range
+from assistant.preparation import pending, test_minutes
 from assistant.reading import Reading
 
 if TYPE_CHECKING:
@@ -47,6 +48,7 @@ class TestPage:
     outcomes: tuple[str, ...] = ()
     expected_outcome: str | None = None  # an observation's most likely answer when nothing is wrong
     remeasure: bool = False
+    prepare: tuple[str, ...] = ()  # the preparations still to make, one line each (their minutes in the cost)
 
 
 @dataclass(frozen=True)
@@ -114,10 +116,15 @@ class PageMaker:
     def test_info(self, test_id: str) -> TestInfo:
         return self._infos[test_id]
 
-    def page(self, test_id: str, extra_cautions: Iterable[str] = (), remeasure: bool = False) -> TestPage:
-        """The page of one test."""
+    def page(self, test_id: str, extra_cautions: Iterable[str] = (), remeasure: bool = False,
+             made: frozenset[str] = frozenset()) -> TestPage:
+        """The page of one test, once the preparations ``made`` are made."""
         spec = self._specs[test_id]
         info = self._infos[test_id]
+        prepare = []
+        for ref, minutes in pending(info, made):
+            prep = self.ruleset.preparations[ref]
+            prepare.append(f"{prep.title} ({minutes:g} min)" + (f": {prep.instructions}" if prep.instructions else ""))
         low, high, healthy = self._healthy(spec, info)
         state = None
         if spec.state:
@@ -136,15 +143,17 @@ class PageMaker:
             test_id=test_id, title=spec.title or test_id, kind=spec.kind, unit=info.unit,
             what=self._what(spec), where=tuple(self._where(spec)), access=spec.access, state=state,
             setup=self._setup(info, low, high), cautions=cautions_for(self.ruleset, spec, extra_cautions),
-            healthy_low=low, healthy_high=high, healthy=healthy, cost_minutes=info.cost_minutes,
+            healthy_low=low, healthy_high=high, healthy=healthy, cost_minutes=test_minutes(info, made),
             question=getattr(spec, "question", None), outcomes=info.outcomes, expected_outcome=expected,
-            remeasure=remeasure,
+            remeasure=remeasure, prepare=tuple(prepare),
         )
 
     def question(self, proposal: Proposal, diagnosis: Diagnosis, answered: int) -> Question:
         """The question for a proposal, in the diagnosis's current state."""
         cautions = tuple(getattr(diagnosis, "cautions", ()))
-        page = self.page(proposal.test_id, cautions, remeasure=bool(getattr(proposal, "remeasure", False)))
+        made = diagnosis.preparations_made() if hasattr(diagnosis, "preparations_made") else frozenset()
+        page = self.page(proposal.test_id, cautions, remeasure=bool(getattr(proposal, "remeasure", False)),
+                         made=made)
         return Question(proposal=proposal, test=self._infos[proposal.test_id], page=page,
                         ranking=tuple(diagnosis.ranking()), why=why_text(proposal),
                         answered=answered, test_ids=tuple(self._specs))
@@ -319,6 +328,8 @@ def render_page(question: Question, heading: str | None = None) -> str:
     lines.append(f"Measure: {page.what}")
     for where in page.where:
         lines.append(f"  at {where}")
+    for line in page.prepare:
+        lines.append(f"First: {line}")
     if page.access:
         lines.append(f"Access: {page.access}")
     if page.state:

@@ -7,6 +7,9 @@ model (``beliefs.py``), so a test whose predicted readings overlap under two sus
 them only as far as the meter can tell them apart (de Kleer & Williams 1987 choose the test of
 minimum expected entropy; the gain is the same quantity seen from the other side).
 
+A test's minutes are its own plus the preparations it needs that no earlier test has made
+(``preparation.py``), so the planner favours the tests whose access is already open.
+
 It stops when the leading hypothesis reaches the threshold (0.95 by default), or when the
 leading hypothesis and the faults no test can tell from it reach it together, or when no test
 left gains more than ``min_gain_bits``. What is left is ranked by probability over repair
@@ -24,6 +27,7 @@ import numpy as np
 
 from assistant.beliefs import EvidenceModel, TestOutcomes, format_value
 from assistant.disjoint import DisjointSets
+from assistant.preparation import test_minutes
 
 ALIVE = 1e-10  # hypotheses below this probability are left out of the gain sums
 AMBIGUITY_TOLERANCE = 0.25  # total-variation distance under which two rows count as the same
@@ -141,8 +145,9 @@ def outcome_posteriors(p: np.ndarray, outcomes: TestOutcomes) -> tuple[np.ndarra
 
 def choose_test(p: np.ndarray, model: EvidenceModel, candidates: Sequence[int],
                 settings: PlannerSettings, *, current_state: str | None = None,
-                recommended: Sequence[int] = ()) -> Choice | None:
-    """The candidate with the most expected gain per minute (None when there is none)."""
+                recommended: Sequence[int] = (), made: frozenset[str] = frozenset()) -> Choice | None:
+    """The candidate with the most expected gain per minute (None when there is none). ``made``:
+    the preparations already made; a test's minutes include those it still needs."""
     if not candidates:
         return None
     g = gains(p, model, candidates)
@@ -150,9 +155,9 @@ def choose_test(p: np.ndarray, model: EvidenceModel, candidates: Sequence[int],
     best_key: tuple[float, float, int] | None = None
     for t, gain in zip(candidates, g):
         info = model.table.tests[t]
-        cost = info.cost_minutes + (settings.state_change_minutes
-                                    if current_state is not None and info.state not in (None, current_state)
-                                    else 0.0)
+        cost = test_minutes(info, made) + (settings.state_change_minutes
+                                           if current_state is not None and info.state not in (None, current_state)
+                                           else 0.0)
         score = gain / cost
         if t in recommended:
             score *= settings.recommend_boost

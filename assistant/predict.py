@@ -64,6 +64,7 @@ class TestInfo:
     outcomes: tuple[str, ...] = ()  # observation outcomes; () for meter tests
     points: tuple[str, ...] = ()  # where the leads go: (red, black) nodes; the part for current tests
     jack: str = "auto"  # current tests: the jack the ruleset asks for (auto, 10A, mA, clamp)
+    prepare: tuple[tuple[str, float], ...] = ()  # the preparations it needs, with their minutes
 
 
 @dataclass(frozen=True, eq=False)
@@ -134,12 +135,14 @@ def test_infos(ruleset: Ruleset) -> tuple[TestInfo, ...]:
     model = CircuitModel(ruleset)
     infos = []
     for test in ruleset.tests:
+        prepare = tuple((ref, ruleset.preparations[ref].cost) for ref in test.prepare)
         if test.kind == "observation":
-            infos.append(TestInfo(test.id, test.kind, "", test.cost, test.state, tuple(test.outcomes)))
+            infos.append(TestInfo(test.id, test.kind, "", test.cost, test.state, tuple(test.outcomes),
+                                  prepare=prepare))
             continue
         m = measurement_for(test, model)
         infos.append(TestInfo(test.id, test.kind, m.unit, test.cost, m.state, (), m.points(),
-                              getattr(test, "jack", "auto")))
+                              getattr(test, "jack", "auto"), prepare))
     return tuple(infos)
 
 
@@ -310,7 +313,8 @@ def _load_cached(key: str, loaded: LoadedRuleset) -> PredictionTable | None:
                 tuple(Hypothesis(h["id"], tuple(h["faults"]), h["prior"], h["repair"], h["repair_minutes"])
                       for h in meta["hypotheses"]),
                 tuple(TestInfo(t["id"], t["kind"], t["unit"], t["cost_minutes"], t["state"], tuple(t["outcomes"]),
-                               tuple(t["points"]), t["jack"]) for t in meta["tests"]),
+                               tuple(t["points"]), t["jack"], tuple((str(r), float(m)) for r, m in t["prepare"]))
+                      for t in meta["tests"]),
                 data["samples"].copy(), data["sigma"].copy(), data["resolution"].copy(), observations)
     except (OSError, ValueError, KeyError, TypeError) as exc:
         log.warning("ignoring unreadable cached predictions %s: %s", path, exc)

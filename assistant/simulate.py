@@ -248,5 +248,6 @@ def noise_free(loaded: LoadedRuleset, table: PredictionTable, threshold: float |
         _, _, minutes = run_planner(start, read)
         expected += priors[h] * minutes
     costs = [t.cost_minutes for t in table.tests]
-    optimum = optimal_cost(outcomes, priors, costs, start.threshold, time_limit=optimum_seconds)
+    optimum = optimal_cost(outcomes, priors, costs, start.threshold, time_limit=optimum_seconds,
+                           prepare=[t.prepare for t in table.tests])
     return expected, optimum

@@ -29,7 +29,8 @@ def infos_of(loaded: LoadedRuleset) -> tuple[TestInfo, ...]:
     infos = []
     for t in loaded.ruleset.tests:
         outcomes = tuple(getattr(t, "outcomes", ()) or ())
-        infos.append(TestInfo(t.id, t.kind, UNITS[t.kind], t.cost, t.state, outcomes))
+        prepare = tuple((ref, loaded.ruleset.preparations[ref].cost) for ref in t.prepare)
+        infos.append(TestInfo(t.id, t.kind, UNITS[t.kind], t.cost, t.state, outcomes, prepare=prepare))
     return tuple(infos)
 
 

@@ -85,6 +85,7 @@ class _Checker:
         yield from self._duplicates()
         yield from self._components()
         yield from self._states()
+        yield from self._preparations()
         yield from self._tests()
         yield from self._complaints()
         yield from self._rules()
@@ -165,10 +166,19 @@ class _Checker:
                     yield self._p(f"state '{name}' names '{ref}', a {comp.type}, not a switch", "states", name,
                                   "closes", j)
 
+    def _preparations(self) -> Iterator[Problem]:
+        needed = {ref for test in self.rs.tests for ref in test.prepare}
+        for name in self.rs.preparations:
+            if name not in needed:
+                yield self._p(f"preparation '{name}' is needed by no test", "preparations", name, at_key=True)
+
     def _tests(self) -> Iterator[Problem]:
         for i, test in enumerate(self.rs.tests):
             if test.state is not None and test.state not in self.rs.states:
                 yield self._p(f"unknown state '{test.state}'", "tests", i, "state")
+            for j, ref in enumerate(test.prepare):
+                if ref not in self.rs.preparations:
+                    yield self._p(f"unknown preparation '{ref}'", "tests", i, "prepare", j)
             if isinstance(test, VoltageTest):
                 yield from self._node(test.at, "tests", i, "at")
                 yield from self._node(test.reference, "tests", i, "reference")

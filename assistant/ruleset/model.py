@@ -362,6 +362,16 @@ class State(Frozen):
     cautions: tuple[str, ...] = ()
 
 
+class Preparation(Frozen):
+    """Access work several tests share (a trim panel off, a relay on a breakout lead, the cranking
+    set-up): made once in a diagnosis, then every test that needs it costs only its own minutes."""
+
+    title: str
+    cost: Minutes = Field(gt=0, description="minutes to make it, once per diagnosis")
+    instructions: str | None = None
+    cautions: tuple[str, ...] = ()
+
+
 # --------------------------------------------------------------------------- tests
 
 
@@ -370,9 +380,13 @@ class TestBase(Frozen):
 
     id: Identifier
     title: str | None = None
-    cost: Minutes = Field(default=2.0, gt=0, description="minutes to make the test, access included")
+    cost: Minutes = Field(default=2.0, gt=0, description="minutes to make the test once its preparations are "
+                          "made (access included where it names none)")
     state: Identifier | None = Field(default=None, description="operating state it needs")
     access: str | None = Field(default=None, description="how to get at the test points")
+    prepare: tuple[Identifier, ...] = Field(
+        default=(), description="preparations it needs (ids of the ruleset's 'preparations'), made once and shared"
+    )
     instructions: str | None = None
     cautions: tuple[str, ...] = ()
     healthy: tuple[float, float] | None = Field(
@@ -543,6 +557,7 @@ class Ruleset(Frozen):
     nodes: dict[Identifier, Node]
     components: tuple[Component, ...] = Field(min_length=1)
     states: dict[Identifier, State] = Field(min_length=1)
+    preparations: dict[Identifier, Preparation] = {}
     tests: tuple[Test, ...] = Field(min_length=1)
     complaints: tuple[Complaint, ...] = ()
     rules: tuple[Rule, ...] = ()
