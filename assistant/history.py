@@ -172,10 +172,15 @@ def _repair(row: list[str], columns: dict[str, int], name: str, number: int,
 
 
 def repairs_from_sessions(records: Iterable[SessionRecord]) -> tuple[Repair, ...]:
-    """The confirmed repairs of closed sessions: status ``closed`` with a diagnosis and a repair."""
+    """The confirmed repairs of closed sessions: status ``closed`` with a diagnosis and a repair.
+    A simulated session (its readings drawn by ``--simulate``) is no repair and is left out."""
     repairs = []
+    simulated = 0
     for record in records:
         if record.status != "closed" or not record.diagnosis or not record.repair:
+            continue
+        if (record.source or "").startswith("simulate"):
+            simulated += 1
             continue
         when = record.finished or record.started
         try:
@@ -186,6 +191,8 @@ def repairs_from_sessions(records: Iterable[SessionRecord]) -> tuple[Repair, ...
         vehicle = record.vehicle.fleet_number or record.vehicle.vin or "?"
         repairs.append(Repair(date, vehicle, record.ruleset_id, record.diagnosis, record.vehicle.odometer_km,
                               f"session {record.id}"))
+    if simulated:
+        log.info("%d simulated session(s) left out: a simulated repair is not one", simulated)
     return tuple(repairs)
 
 

@@ -87,11 +87,11 @@ def test_missing_file_and_binary_file(tmp_path: Path) -> None:
         read_history(_csv(tmp_path, b"date\x00vehicle"), KNOWN)
 
 
-def _record(status: str, diagnosis: str | None, repair: str | None) -> SessionRecord:
+def _record(status: str, diagnosis: str | None, repair: str | None, source: str | None = "prompt") -> SessionRecord:
     return SessionRecord(id=f"s-{status}-{diagnosis}", ruleset_id="stop_lamps", ruleset_version="1.0.0",
                          ruleset_sha256="0" * 64, started="2026-05-01T08:00:00Z", finished="2026-05-01T09:10:00Z",
                          status=status, diagnosis=diagnosis, repair=repair,  # type: ignore[arg-type]
-                         vehicle=VehicleInfo(fleet_number="CV2-044", odometer_km=90500))
+                         vehicle=VehicleInfo(fleet_number="CV2-044", odometer_km=90500), source=source)
 
 
 def test_closed_sessions_with_a_repair_count() -> None:
@@ -105,6 +105,12 @@ def test_closed_sessions_with_a_repair_count() -> None:
     assert (repair.fault_id, repair.vehicle, repair.date, repair.odometer_km) == (
         "g_rear.high_resistance", "CV2-044", dt.date(2026, 5, 1), 90500)
     assert repair.source == "session s-closed-g_rear.high_resistance"
+
+
+def test_simulated_sessions_are_no_repairs() -> None:
+    records = [_record("closed", "lamp_left.filament_open", "Replaced the left lamp", "simulate lamp_left.filament_open seed 7"),
+               _record("closed", "g_rear.high_resistance", "Cleaned and refitted G30", "answers bench.yaml")]
+    assert [r.fault_id for r in repairs_from_sessions(records)] == ["g_rear.high_resistance"]
 
 
 def test_closed_sessions_are_read_from_the_store(tmp_path: Path) -> None:
