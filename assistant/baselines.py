@@ -1,7 +1,8 @@
 """What the planner is measured against: the trade's linear walk, half-split, and the optimum.
 
 - Linear walk: voltage at each test point from the one furthest from the supply toward the
-  supply, stopping at the first good point (common practice).
+  supply, stopping at the first good point (common practice), with the meter (a scan tool's
+  live data is not a test point).
 - Half-split: voltage at the middle test point of the path still in doubt, halving it each time
   (common practice).
 - The optimum of the noise-free problem (each hypothesis shows one outcome per test): the least
@@ -128,7 +129,8 @@ def voltage_path(ruleset: Ruleset, table: PredictionTable) -> list[int]:
                 if nxt not in distance and nxt != ruleset.ground:
                     distance[nxt] = distance[node] + 1
                     queue.append(nxt)
-    voltage = [t for t in ruleset.tests if isinstance(t, VoltageTest) and t.reference in (None, ruleset.ground)]
+    voltage = [t for t in ruleset.tests if isinstance(t, VoltageTest) and t.reference in (None, ruleset.ground)
+               and t.instrument == "meter"]
     states = [t.state for t in voltage]
     # the state the walk is made in: the commonest, the first in ruleset order on a tie (a set here
     # made the walk depend on the string-hash seed of the process)

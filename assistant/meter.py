@@ -193,6 +193,20 @@ def show(values: np.ndarray, ranges: tuple[Scale, ...], accuracy: Accuracy) -> D
     return Display(samples, sigma, resolution, chosen)
 
 
+# A module's live data of one of its own inputs, read on a scan tool: a 10-bit converter on the
+# module's 5 V reference resolves about 5 mV and live data shows two decimals; the reading is
+# good to about 1 % and 2 digits, and an input above the converter's span shows its top, 5.00 V
+# (all from memory: take the figures of your module and scan tool).
+SCAN_TOOL_SPAN = 5.0
+SCAN_TOOL_SCALES = (Scale(SCAN_TOOL_SPAN, 0.01, SCAN_TOOL_SPAN),)
+SCAN_TOOL_ACCURACY = Accuracy(percent=1.0, counts=2)
+
+
+def scan_tool_display(values: np.ndarray) -> Display:
+    """What a module reports of the voltages ``values`` at its input: clipped to its span."""
+    return show(np.clip(np.asarray(values, dtype=float), 0.0, SCAN_TOOL_SPAN), SCAN_TOOL_SCALES, SCAN_TOOL_ACCURACY)
+
+
 def volts_scales(profile: MeterProfile) -> tuple[Scale, ...]:
     return scales(profile.dc_volts.ranges, profile.counts)
 
@@ -287,6 +301,11 @@ def meter_setup(test: TestInfo, profile: MeterProfile, expected_value: float | N
     """Function, range, where each lead goes, for one test and the value expected."""
     red_at, black_at = (tuple(test.points) + (None, None))[:2]
     known = expected_value is not None and math.isfinite(expected_value)
+    if test.instrument == "scan_tool":
+        return MeterSetup("scan tool, live data", f"0 to {SCAN_TOOL_SPAN:g} V, shown to 0.01 V",
+                          "no meter leads", "no meter leads",
+                          f"read the voltage the module reports for {red_at}; a value above its span shows "
+                          f"{SCAN_TOOL_SPAN:.2f} V")
     if test.kind in ("voltage", "drop", "fuse_drop"):
         rng = _range_text(volts_scales(profile), expected_value, "V") if known else "auto"
         note = ("across the fuse in place, through its test slots: millivolts mean current flows"

@@ -196,6 +196,8 @@ class PageMaker:
         name = self._node_name
         if kind == "voltage":
             ref = spec.reference or self.ruleset.ground
+            if spec.instrument == "scan_tool":
+                return f"the voltage the module reports at {name(spec.at)} (against {name(ref)}), on the scan tool's live data"
             return f"DC voltage at {name(spec.at)}, against {name(ref)}"
         if kind == "drop":
             a, b = spec.between
@@ -283,6 +285,8 @@ class PageMaker:
 
         expected = high if high is not None else low  # the range must hold the largest healthy value
         setup = meter_setup(info, self.meter, expected)
+        if info.instrument == "scan_tool":  # no leads: "Meter: none, scan tool live data ..."
+            return (f"none; {setup.function}, {setup.range}",) + ((setup.note,) if setup.note else ())
         lines = [f"{setup.function}, range {setup.range}", f"red lead: {setup.red_lead}",
                  f"black lead: {setup.black_lead}"]
         if setup.note:

@@ -65,6 +65,7 @@ class TestInfo:
     points: tuple[str, ...] = ()  # where the leads go: (red, black) nodes; the part for current tests
     jack: str = "auto"  # current tests: the jack the ruleset asks for (auto, 10A, mA, clamp)
     prepare: tuple[tuple[str, float], ...] = ()  # the preparations it needs, with their minutes
+    instrument: str = "meter"  # voltage tests: "meter", or "scan_tool" for a module's live data
 
 
 @dataclass(frozen=True, eq=False)
@@ -142,7 +143,7 @@ def test_infos(ruleset: Ruleset) -> tuple[TestInfo, ...]:
             continue
         m = measurement_for(test, model)
         infos.append(TestInfo(test.id, test.kind, m.unit, test.cost, m.state, (), m.points(),
-                              getattr(test, "jack", "auto"), prepare))
+                              getattr(test, "jack", "auto"), prepare, getattr(test, "instrument", "meter")))
     return tuple(infos)
 
 
@@ -313,7 +314,8 @@ def _load_cached(key: str, loaded: LoadedRuleset) -> PredictionTable | None:
                 tuple(Hypothesis(h["id"], tuple(h["faults"]), h["prior"], h["repair"], h["repair_minutes"])
                       for h in meta["hypotheses"]),
                 tuple(TestInfo(t["id"], t["kind"], t["unit"], t["cost_minutes"], t["state"], tuple(t["outcomes"]),
-                               tuple(t["points"]), t["jack"], tuple((str(r), float(m)) for r, m in t["prepare"]))
+                               tuple(t["points"]), t["jack"], tuple((str(r), float(m)) for r, m in t["prepare"]),
+                               t["instrument"])
                       for t in meta["tests"]),
                 data["samples"].copy(), data["sigma"].copy(), data["resolution"].copy(), observations)
     except (OSError, ValueError, KeyError, TypeError) as exc:

@@ -109,6 +109,15 @@ def test_voltage_path_is_the_same_in_every_process() -> None:
     assert "v_m_pos" in printed.pop()  # a speed4 test: speed4 comes first in the ruleset
 
 
+def test_the_walk_takes_no_scan_tool_reading() -> None:
+    # live data is the module's own reading, not a point the walk puts a probe on
+    root = Path(__file__).resolve().parent.parent
+    child = [sys.executable, str(root / "tests" / "children" / "walk_path.py"), "rulesets/sensor_feed/sensor_reference.yaml"]
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(root), str(root / "tests")])}
+    path = subprocess.run(child, cwd=root, env=env, capture_output=True, text=True, check=True).stdout
+    assert "v_sig_bps" in path and "live_" not in path
+
+
 def _reader(table, good_upto: int, path: list[int]):  # type: ignore[no-untyped-def]
     def read(t: int) -> Reading:
         return Reading("12.40", value=12.4) if path.index(t) <= good_upto else Reading("0.00", value=0.0)

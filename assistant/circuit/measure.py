@@ -19,6 +19,7 @@
 
 from __future__ import annotations
 
+import math
 from abc import ABC, abstractmethod
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -36,6 +37,7 @@ from assistant.meter import (
     current_accuracy,
     jack_scales,
     ohms_scales,
+    scan_tool_display,
     show,
     volts_scales,
 )
@@ -78,6 +80,8 @@ def voltmeter(point: OperatingPoint, a: str, b: str, input_ohms: float) -> np.nd
     open_volts = sol.volts[:, ia] - sol.volts[:, ib]
     thevenin = np.maximum(sol.response[:, ia, k] - sol.response[:, ib, k], 0.0)
     same = sol.island[:, ia] == sol.island[:, ib]
+    if math.isinf(input_ohms):  # a module's own input: its loading is in the circuit already
+        return np.where(same, open_volts, 0.0)
     return np.where(same, open_volts * input_ohms / (input_ohms + thevenin), 0.0)
 
 
@@ -118,6 +122,8 @@ class VoltageMeasurement(Measurement):
 
     def display(self, env: Env) -> Display:
         red, black = self.points()
+        if getattr(self.test, "instrument", "meter") == "scan_tool":
+            return scan_tool_display(voltmeter(env.points[self.state], red, black, math.inf))
         values = voltmeter(env.points[self.state], red, black, env.meter.dc_volts.input_resistance)
         return show(values, volts_scales(env.meter), env.meter.dc_volts.accuracy)
 

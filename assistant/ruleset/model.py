@@ -400,6 +400,10 @@ class VoltageTest(TestBase):
     kind: Literal["voltage"]
     at: Identifier
     reference: Identifier | None = None
+    instrument: Literal["meter", "scan_tool"] = Field(
+        default="meter", description="meter: the multimeter's leads on the two points; scan_tool: the "
+        "voltage a module reports in its live data for its own input (no leads, no meter loading)"
+    )
 
 
 class DropTest(TestBase):

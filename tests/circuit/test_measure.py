@@ -71,6 +71,29 @@ def test_voltmeter_loading_on_a_high_impedance_divider() -> None:
     assert shown(tab, "none", "v_t") == pytest.approx(2.38, abs=1e-9)
 
 
+def test_scan_tool_reads_the_divider_unloaded_and_clips_at_its_span() -> None:
+    # The same divider read by the module itself (its input is in the circuit already): the
+    # unloaded 2.5 V of the 1 M + 1 M divider, two decimals, uncertainty (1 % of 2.50 + 2 x 0.01)
+    # / sqrt(3) = 0.0260 V (assistant/meter.py, from memory); the 12.6 V battery above its 5 V span
+    # shows 5.00 V. The meter on the same point reads the loaded 2.38 V.
+    comps = [{"id": "ecu", "type": "module_supply", "nodes": ["REF", "GND"], "voltage": "5 V",
+              "internal_resistance": "1e-6 ohm", "tolerance": 0},
+             {"id": "r1", "type": "resistor", "nodes": ["REF", "T"], "resistance": "1 Mohm", "tolerance": 0},
+             {"id": "r2", "type": "resistor", "nodes": ["T", "GND"], "resistance": "1 Mohm", "tolerance": 0},
+             {"id": "b", "type": "battery", "nodes": ["P", "GND"], "emf": "12.6 V", "tolerance": 0},
+             {"id": "load", "type": "resistor", "nodes": ["P", "GND"], "resistance": "100 ohm", "tolerance": 0}]
+    tab = table([{"id": "live_t", "kind": "voltage", "at": "T", "state": "on", "instrument": "scan_tool"},
+                 {"id": "v_t", "kind": "voltage", "at": "T", "state": "on"},
+                 {"id": "live_p", "kind": "voltage", "at": "P", "state": "on", "instrument": "scan_tool"}], comps)
+    t = tab.test_index("live_t")
+    assert shown(tab, "none", "live_t") == pytest.approx(2.50, abs=1e-9)
+    assert float(tab.resolution[0, t, 0]) == pytest.approx(0.01)
+    assert float(tab.sigma[0, t, 0]) == pytest.approx((0.01 * 2.5 + 2 * 0.01) / np.sqrt(3), rel=1e-9)
+    assert shown(tab, "none", "v_t") == pytest.approx(2.38, abs=1e-9)
+    assert shown(tab, "none", "live_p") == pytest.approx(5.00, abs=1e-9)
+    assert tab.tests[t].instrument == "scan_tool" and tab.tests[tab.test_index("v_t")].instrument == "meter"
+
+
 def test_resistance_of_a_lamp_on_the_bench_excludes_its_holder() -> None:
     # cold P21W: 6.857 / 12 = 0.571 ohm, plus 0.2 ohm of leads = 0.771, shown 0.8 on the 200 ohm
     # range (0.1 ohm steps) [D]; the holder's high resistance is not on the bench
