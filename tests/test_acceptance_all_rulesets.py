@@ -26,15 +26,7 @@ RULESETS = sorted((Path(__file__).resolve().parent.parent / "rulesets").glob("*/
 
 # Faults still not named at seed 0, each with what the session concludes instead. Open defects,
 # listed so that a new miss fails this test and a fixed one must be taken off the list.
-KNOWN_MISSES: dict[str, dict[str, str]] = {
-    "sensor_reference": {
-        # the drawn eyelet resistance sits at the top of its range and lifts both sensor grounds by
-        # 0.83 V, which the shared sensor-ground wire does more often: three readings of that one
-        # offset (the pedal signal and both ground drops), taken as independent evidence, put the
-        # wire at 96.6 % before any test at the module (where the two differ) is made
-        "g_ecm.high_resistance": "w_sgnd.high_resistance",
-    },
-}
+KNOWN_MISSES: dict[str, dict[str, str]] = {}
 
 
 def _named(data: dict[str, object], fault: str) -> bool:

@@ -107,3 +107,12 @@ def test_a_group_conclusion_closes_as_one_of_its_members(stop_pages: PageMaker) 
             "w_high_gnd.high_resistance, together 99.5%") in text
     assert "most likely lamp_high.high_resistance, 54.0%" in text
     assert "Diagnosis: lamp_high.high_resistance" not in text  # not one certain part
+
+
+def test_a_scan_tool_page_asks_for_no_meter_leads() -> None:
+    loaded = load_ruleset(RULESETS / "sensor_feed" / "sensor_reference.yaml")
+    page = PageMaker(loaded, predict(loaded), default_meter()).page("live_bps")
+    assert page.what.startswith("the voltage the module reports at SIG_BPS_M")
+    assert page.setup[0].startswith("none; scan tool, live data, 0 to 5 V")
+    assert not any("lead:" in line for line in page.setup)
+    assert page.healthy is not None and page.healthy.endswith("V")
