@@ -129,9 +129,10 @@ class PageMaker:
         state = None
         if spec.state:
             st = self.ruleset.states.get(spec.state)
-            state = st.label if st is None or not st.instructions else f"{st.label}: {st.instructions}"
-            if st is None:
+            if st is None:  # lint refuses an unknown state; an unlinted file still gets its page
                 state = spec.state
+            else:
+                state = f"{st.label}: {st.instructions}" if st.instructions else st.label
         expected = None
         if info.kind == "observation":
             t = self.table.test_index(test_id)

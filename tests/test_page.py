@@ -116,3 +116,15 @@ def test_a_scan_tool_page_asks_for_no_meter_leads() -> None:
     assert page.setup[0].startswith("none; scan tool, live data, 0 to 5 V")
     assert not any("lead:" in line for line in page.setup)
     assert page.healthy is not None and page.healthy.endswith("V")
+
+
+def test_a_page_whose_state_is_not_defined_names_the_state(stop_pages: PageMaker) -> None:
+    # an unlinted ruleset may name a state it does not define: the page names it, no traceback
+    from assistant.ruleset.model import Ruleset
+
+    spec = stop_pages.ruleset.tests[0].model_copy(update={"state": "ignition_on"})
+    ruleset = Ruleset.model_construct(**{**dict(stop_pages.ruleset), "tests": (spec,) + stop_pages.ruleset.tests[1:]})
+    pages = PageMaker(stop_pages.loaded, stop_pages.table, default_meter())
+    pages.ruleset = ruleset
+    pages._specs = {t.id: t for t in ruleset.tests}
+    assert pages.page(spec.id).state == "ignition_on"
