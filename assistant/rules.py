@@ -221,9 +221,9 @@ class RuleEngine:
                 except Exception:  # pragma: no cover - nothing left to delete
                     log.debug("state %s of %s already gone", sid, self.name)
         if run.error is not None:
-            rule_id, exc = run.error
+            rule_id, cause = run.error
             raise RulesEngineError(f"{self._place(rule_id)}: rule '{rule_id}' failed while it was "
-                                   f"evaluated: {exc}") from exc
+                                   f"evaluated: {cause}") from cause
         if isinstance(state, dict) and state.get("exception"):
             raise RulesEngineError(f"{self._place(None)}: a decision rule failed: "
                                    f"{str(state['exception']).split(', traceback')[0]}")
