@@ -120,3 +120,12 @@ def random_table(n_hypotheses: int, n_tests: int, *, samples: int = 32, seed: in
     sigma = (0.005 * np.abs(x) + 0.02) / np.sqrt(3.0)
     res = np.full_like(x, 0.01)
     return PredictionTable("harness", "1" * 64, hyps, tests, x, sigma, res, {})
+
+
+def flat_table(loaded: LoadedRuleset) -> PredictionTable:
+    """A table where every meter test reads 12 V under every hypothesis and every observation is
+    a toss-up: enough for what depends only on the ruleset's tests (the walk's path)."""
+    infos = infos_of(loaded)
+    default = {i.id: {o: 1 / len(i.outcomes) for o in i.outcomes} if i.kind == "observation" else (12.0, 0.1)
+               for i in infos}
+    return build_table(hypotheses_of(loaded), infos, {}, default=default)

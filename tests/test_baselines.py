@@ -15,7 +15,7 @@ import pytest
 from assistant.baselines import half_split, linear_walk, optimal_cost, voltage_path
 from assistant.reading import Reading
 from assistant.ruleset import load_ruleset
-from synthetic_tables import build_table, hypotheses_of, infos_of
+from synthetic_tables import build_table, flat_table, hypotheses_of, infos_of
 
 STOP_LAMPS = load_ruleset(Path(__file__).resolve().parent.parent / "rulesets" / "lamp" / "stop_lamps.yaml")
 
@@ -111,11 +111,10 @@ def test_voltage_path_is_the_same_in_every_process() -> None:
 
 def test_the_walk_takes_no_scan_tool_reading() -> None:
     # live data is the module's own reading, not a point the walk puts a probe on
-    root = Path(__file__).resolve().parent.parent
-    child = [sys.executable, str(root / "tests" / "children" / "walk_path.py"), "rulesets/sensor_feed/sensor_reference.yaml"]
-    env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(root), str(root / "tests")])}
-    path = subprocess.run(child, cwd=root, env=env, capture_output=True, text=True, check=True).stdout
-    assert "v_sig_bps" in path and "live_" not in path
+    sensor = load_ruleset(Path(__file__).resolve().parent.parent / "rulesets" / "sensor_feed" / "sensor_reference.yaml")
+    table = flat_table(sensor)
+    ids = [table.tests[t].id for t in voltage_path(sensor.ruleset, table)]
+    assert "v_sig_bps" in ids and not any(i.startswith("live_") for i in ids)
 
 
 def _reader(table, good_upto: int, path: list[int]):  # type: ignore[no-untyped-def]
