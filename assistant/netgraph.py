@@ -70,7 +70,9 @@ def si(value: float, unit: str) -> str:
 
 
 def _battery(c: Battery, rs: Ruleset) -> str:
-    return f"EMF {si(c.emf, 'V')}, internal {si(c.internal_resistance, 'ohm')}"
+    low, high = c.emf_range
+    emf = si(low, "V") if low == high else f"{si(low, 'V')} to {si(high, 'V')}"
+    return f"EMF {emf}, internal {si(c.internal_resistance, 'ohm')}"
 
 
 def _wire(c: Wire, rs: Ruleset) -> str:

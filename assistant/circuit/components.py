@@ -150,7 +150,15 @@ class BatteryPart(Part):
     FAILING_FACTOR = (5.0, 50.0)  # internal resistance of a failing battery × this: from memory
 
     def nominal(self) -> dict[str, float]:
-        return {"emf": self.spec.emf, "ohms": self.spec.internal_resistance}
+        return {"emf": self.spec.nominal_emf, "ohms": self.spec.internal_resistance}
+
+    def values(self, spread: np.ndarray) -> Values:
+        """A healthy battery's EMF anywhere in its range, uniform: the lower the charge, the higher
+        its internal resistance within tolerance (the one spread draws both)."""
+        out = super().values(spread)
+        low, high = self.spec.emf_range
+        out["emf"] = high - (high - low) * 0.5 * (1.0 + np.asarray(spread, dtype=float))
+        return out
 
     def fault(self, mode: str, values: Values, sl: slice, draw: Draw) -> None:
         if mode == "discharged":

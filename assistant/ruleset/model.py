@@ -182,11 +182,33 @@ class Battery(ComponentBase):
     """A battery: EMF behind internal resistance. nodes: [positive, negative]."""
 
     type: Literal["battery"]
-    emf: Volts = Field(gt=0)
+    emf: Volts | tuple[Volts, Volts] = Field(
+        description="EMF at rest: one value, or the range a healthy battery in service may be at "
+        "(its state of charge is not known before the test), e.g. [12.45 V, 12.65 V] for 75-100 %"
+    )
     internal_resistance: Ohms = Field(default=0.01, gt=0)
     discharged_emf: tuple[Volts, Volts] = Field(
         default=(11.6, 12.2), description="EMF range of a discharged battery"
     )
+
+    @field_validator("emf")
+    @classmethod
+    def _emf_positive(cls, value: float | tuple[float, float]) -> float | tuple[float, float]:
+        low, high = value if isinstance(value, tuple) else (value, value)
+        if not 0 < low <= high:
+            raise ValueError("emf must be above 0 V; a range is [low, high] with low <= high")
+        return value
+
+    @property
+    def emf_range(self) -> tuple[float, float]:
+        """(lowest, highest) EMF of a healthy battery; the same value twice when ``emf`` is one value."""
+        return (self.emf, self.emf) if isinstance(self.emf, float) else self.emf
+
+    @property
+    def nominal_emf(self) -> float:
+        """The EMF of the nominal (noise-free) circuit: the middle of the range."""
+        low, high = self.emf_range
+        return 0.5 * (low + high)
 
 
 class Wire(ComponentBase):

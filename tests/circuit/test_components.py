@@ -4,10 +4,14 @@ from __future__ import annotations
 
 from types import SimpleNamespace
 
+import numpy as np
 import pytest
 
 from assistant.circuit.components import PART_TYPES, lamp_hot_ohms, part_for, wire_ohms
+from assistant.circuit.netlist import CircuitModel
+from assistant.circuit.operating import operate_states
 from assistant.errors import CircuitError
+from assistant.predict import hypotheses_of
 from assistant.ruleset.model import COMPONENT_TYPES
 from assistant.ruleset.quantities import AREA, parse_quantity
 
@@ -183,3 +187,30 @@ def test_a_relay_its_own_load_makes_chatter_is_taken_as_at_rest() -> None:
     # with a healthy battery (10 mOhm) the same relay holds and the motor runs
     comps[0] = dict(comps[0], internal_resistance="0.01 ohm")
     assert nominal_volts(build_ruleset(comps))["M"] > 12.0
+
+
+def test_a_battery_emf_range_spans_the_lead_acid_table_75_to_100_percent() -> None:
+    # Lead-acid open-circuit voltage table (FACTS.md [S]): 12.45 V at 75 %, 12.65 V at 100 %.
+    # A healthy battery in service is anywhere in between; the engine draws it uniformly, and the
+    # nominal circuit takes the middle.
+    ruleset = build_ruleset([
+        {"id": "b", "type": "battery", "nodes": ["P", "GND"], "emf": ["12.45 V", "12.65 V"],
+         "internal_resistance": "1e-9 ohm"},
+        {"id": "r", "type": "resistor", "nodes": ["P", "GND"], "resistance": "1 kohm", "tolerance": 0},
+    ])
+    assert nominal_volts(ruleset)["P"] == pytest.approx(12.55, abs=1e-6)
+    model = CircuitModel(ruleset)
+    _, members = hypotheses_of(ruleset, [])
+    batch = model.batch([m for m in members if m[0] == "none"], 2000, seed=3)
+    point = operate_states(model, batch, {})[model.state(None)]
+    volts = point.solution.volts[:, point.built.net.nodes.index("P")]
+    assert volts.min() >= 12.45 - 1e-6 and volts.max() <= 12.65 + 1e-6
+    assert volts.min() < 12.46 and volts.max() > 12.64  # the whole range, not one value
+    assert abs(float(np.mean(volts)) - 12.55) < 0.01  # uniform: its mean is the middle
+
+
+@pytest.mark.parametrize("emf", [["12.65 V", "12.45 V"], ["0 V", "12 V"], "-1 V"])
+def test_a_battery_emf_range_must_be_ordered_and_positive(emf: object) -> None:
+    with pytest.raises(ValueError, match="emf"):
+        build_ruleset([{"id": "b", "type": "battery", "nodes": ["P", "GND"], "emf": emf},
+                       {"id": "r", "type": "resistor", "nodes": ["P", "GND"], "resistance": 10}])
