@@ -29,7 +29,7 @@ def test_lint_bundled_exits_zero(capsys: pytest.CaptureFixture[str]) -> None:
 @pytest.mark.parametrize(
     ("old", "new"),
     [
-        ("    emf: 12.65 V", "    emf: 12.65 V\n    emf: 13 V"),  # duplicated key
+        ("    internal_resistance: 0.01 ohm", "    internal_resistance: 0.01 ohm\n    internal_resistance: 0.02 ohm"),  # duplicated key
         ("    rating: 10 A ", "    rating: ten A "),  # a number replaced by a word
         ("    nodes: [F12_OUT, SW_IN]", "    nodes: [F12_OUT, SW_IN"),  # broken YAML
     ],

@@ -60,7 +60,7 @@ def test_nodes_components_values_and_tests_are_drawn(ruleset) -> None:  # type: 
     assert "10 A fuse" in _edge(source, "BATT_POS", "F12_OUT")
     assert "closed in: pedal_pressed" in _edge(source, "SW_IN", "SW_OUT")
     # the battery is a box with its terminals named
-    assert "comp_battery [label=\"battery (battery)" in source and "EMF 12.65 V, internal 10 mΩ" in source
+    assert "comp_battery [label=\"battery (battery)" in source and "EMF 12.45 V to 12.65 V, internal 10 mΩ" in source
     # each test point lists the tests that probe it
     assert re.search(r"node_L_FEED \[label=\"L_FEED\n[^\"]*tests: v_left_feed, r_left_lamp, i_left", source)
 

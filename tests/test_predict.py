@@ -80,7 +80,7 @@ def test_healthy_feed_and_ground_side_drops_under_half_a_volt(table) -> None:  #
 
 def test_acceptance_feed_voltage_and_an_open_feed(loaded, table) -> None:  # type: ignore[no-untyped-def]
     summary = summarise(table)
-    battery = next(c for c in loaded.ruleset.components if c.type == "battery").emf
+    battery = next(c for c in loaded.ruleset.components if c.type == "battery").nominal_emf
     for test in ("v_left_feed", "v_right_feed", "v_high_feed"):
         assert battery - summary["none"][test]["median"] < 0.6  # within a few tenths of the battery
     # an open in the feed path reads near 0 V beyond it, and the battery's voltage before it

@@ -63,7 +63,8 @@ def _position(text: str, mark: str) -> tuple[int, int]:
     ("old", "new", "mark", "fragment"),
     [
         # a duplicated key is an error at the second one, never "last one wins"
-        ("    emf: 12.65 V", "    emf: 12.65 V\n    emf: 13 V", "emf: 13 V", "duplicate key: emf"),
+        ("    internal_resistance: 0.01 ohm", "    internal_resistance: 0.01 ohm\n    internal_resistance: 0.02 ohm",
+         "internal_resistance: 0.02 ohm", "duplicate key: internal_resistance"),
         # a number replaced by a word
         ("    rating: 10 A ", "    rating: ten A ", "ten A", "components.1.rating: 'ten A' is not a current"),
         # wrong dimension
