@@ -70,7 +70,7 @@ def si(value: float, unit: str) -> str:
 
 
 def _battery(c: Battery, rs: Ruleset) -> str:
-    low, high = c.emf_range
+    low, high = c.emf
     emf = si(low, "V") if low == high else f"{si(low, 'V')} to {si(high, 'V')}"
     return f"EMF {emf}, internal {si(c.internal_resistance, 'ohm')}"
 

@@ -156,7 +156,7 @@ class BatteryPart(Part):
         """A healthy battery's EMF anywhere in its range, uniform: the lower the charge, the higher
         its internal resistance within tolerance (the one spread draws both)."""
         out = super().values(spread)
-        low, high = self.spec.emf_range
+        low, high = self.spec.emf
         out["emf"] = high - (high - low) * 0.5 * (1.0 + np.asarray(spread, dtype=float))
         return out
 

@@ -18,7 +18,7 @@ from __future__ import annotations
 
 from typing import Annotated, Any, Literal, Union
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+from pydantic import BaseModel, ConfigDict, Field, WithJsonSchema, field_validator, model_validator
 
 from assistant.ruleset.quantities import (
     Amperes,
@@ -26,10 +26,13 @@ from assistant.ruleset.quantities import (
     Fraction,
     Metres,
     Minutes,
+    VOLTAGE,
     Ohms,
+    QuantityError,
     SquareMetres,
     Volts,
     Watts,
+    parse_quantity,
 )
 
 FORMAT_VERSION = 1
@@ -182,33 +185,42 @@ class Battery(ComponentBase):
     """A battery: EMF behind internal resistance. nodes: [positive, negative]."""
 
     type: Literal["battery"]
-    emf: Volts | tuple[Volts, Volts] = Field(
-        description="EMF at rest: one value, or the range a healthy battery in service may be at "
-        "(its state of charge is not known before the test), e.g. [12.45 V, 12.65 V] for 75-100 %"
-    )
+    emf: Annotated[tuple[Volts, Volts], WithJsonSchema({
+        "anyOf": [{"type": "number"}, {"type": "string"},
+                  {"type": "array", "items": {"anyOf": [{"type": "number"}, {"type": "string"}]},
+                   "minItems": 2, "maxItems": 2}],
+        "description": "EMF at rest: one value, or the range [low, high] a healthy battery in service "
+                       "may be at (its state of charge is not known before the test), e.g. "
+                       "[12.45 V, 12.65 V] for 75-100 %; one value is kept as a range of one",
+    })]
     internal_resistance: Ohms = Field(default=0.01, gt=0)
     discharged_emf: tuple[Volts, Volts] = Field(
         default=(11.6, 12.2), description="EMF range of a discharged battery"
     )
 
+    @field_validator("emf", mode="before")
+    @classmethod
+    def _emf_one_value(cls, value: Any) -> Any:
+        # one value is a range of one: (v, v); a list goes on to the range's own checks
+        if isinstance(value, (list, tuple)):
+            return value
+        try:
+            volts = parse_quantity(value, VOLTAGE)
+        except QuantityError as exc:
+            raise ValueError(str(exc)) from exc
+        return (volts, volts)
+
     @field_validator("emf")
     @classmethod
-    def _emf_positive(cls, value: float | tuple[float, float]) -> float | tuple[float, float]:
-        low, high = value if isinstance(value, tuple) else (value, value)
-        if not 0 < low <= high:
+    def _emf_positive(cls, value: tuple[float, float]) -> tuple[float, float]:
+        if not 0 < value[0] <= value[1]:
             raise ValueError("emf must be above 0 V; a range is [low, high] with low <= high")
         return value
 
     @property
-    def emf_range(self) -> tuple[float, float]:
-        """(lowest, highest) EMF of a healthy battery; the same value twice when ``emf`` is one value."""
-        return (self.emf, self.emf) if isinstance(self.emf, float) else self.emf
-
-    @property
     def nominal_emf(self) -> float:
         """The EMF of the nominal (noise-free) circuit: the middle of the range."""
-        low, high = self.emf_range
-        return 0.5 * (low + high)
+        return 0.5 * (self.emf[0] + self.emf[1])
 
 
 class Wire(ComponentBase):

@@ -67,6 +67,9 @@ def _position(text: str, mark: str) -> tuple[int, int]:
          "internal_resistance: 0.02 ohm", "duplicate key: internal_resistance"),
         # a number replaced by a word
         ("    rating: 10 A ", "    rating: ten A ", "ten A", "components.1.rating: 'ten A' is not a current"),
+        # a word inside a battery's EMF range: the element is named, not the validator's inner types
+        ("    emf: [12.45 V, 12.65 V]", "    emf: [12.45 V, twelve V]", "twelve V",
+         "components.0.emf.1: 'twelve V' is not a voltage"),
         # wrong dimension
         ("    section: 1.0 mm2", "    section: 13.5 V", "13.5 V", "is not a cross-section"),
         # a wrong type: a mapping where a text is expected
