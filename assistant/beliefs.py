@@ -63,6 +63,9 @@ class TestOutcomes:
     n_bins: int = 0
     columns: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))  # bin -> column
     bins: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))  # column -> bin
+    # each hypothesis' kernel bandwidth on the u scale, for the per-sample (joint) likelihood;
+    # None where readings are taken one by one (observations, the noise-free model)
+    bandwidth: np.ndarray | None = None
     log2probs: np.ndarray = field(init=False, repr=False)  # log2 of probs (-inf where 0)
     row_negentropy: np.ndarray = field(init=False, repr=False)  # sum_k P log2 P per hypothesis
 
@@ -201,13 +204,91 @@ class EvidenceModel:
     def n_hypotheses(self) -> int:
         return len(self.table.hypotheses)
 
-    def log_likelihood(self, answered: Iterable[tuple[int, Reading]]) -> np.ndarray:
-        """Sum over the answered tests of log P(reading | h), shape (H,)."""
-        total = np.zeros(self.n_hypotheses)
+    def sample_likelihood(self, t: int, reading: Reading, widen: float = 1.0) -> np.ndarray | None:
+        """P(reading | h, sample s) of a meter test, shape (H, S), outlier floor included.
+
+        Sample ``s`` is one simulated vehicle: one set of part values and one fault magnitude.
+        Its display is spread by the meter's uncertainty and the kernel bandwidth as in
+        :func:`build_model`, so that the mean over the samples is the test's ``probs`` column.
+        None where the reading tells every sample of a hypothesis the same (observations, the
+        noise-free model, a value off the grid, the "elsewhere" column).
+        """
+        o = self.tests[t]
+        if o.bandwidth is None:
+            return None
+        k = o.outcome_index(reading)
+        if k is None or k == o.n_values:
+            return None
+        x = np.asarray(self.table.samples[:, t, :], dtype=float)
+        if k == o.n_values + 1:
+            mass = np.isneginf(x).astype(float)
+        elif k == o.n_values + 2:
+            mass = np.isposinf(x).astype(float)
+        else:
+            finite = np.isfinite(x)
+            xs = np.where(finite, x, 0.0)
+            u = np.arcsinh(xs / o.scale)
+            sig = np.nan_to_num(np.asarray(self.table.sigma[:, t, :], dtype=float), nan=0.0, posinf=0.0)
+            spread = np.sqrt((sig / np.sqrt(xs ** 2 + o.scale ** 2)) ** 2 + (widen * o.bandwidth[:, None]) ** 2)
+            b = int(o.bins[k])
+            lower, upper = (b - 0.5) * o.du, (b + 0.5) * o.du
+            safe = np.where(spread > 0, spread, 1.0)
+            mass = np.where(spread > 0, ndtr((upper - u) / safe) - ndtr((lower - u) / safe),
+                            ((lower <= u) & (u < upper)).astype(float))
+            mass = np.where(finite, mass, 0.0)
+        # a sample with no prediction (NaN) says what the hypothesis says on the whole
+        mass = np.where(np.isnan(x), o.model[:, k][:, None], mass)
+        known = o.model.sum(axis=1) > 0
+        floor = o.probs[:, k] - (1.0 - o.outlier) * o.model[:, k]
+        like = (1.0 - o.outlier) * mass + floor[:, None]
+        like[~known] = o.probs[~known, k][:, None]
+        return like
+
+    def split_log_likelihood(self, answered: Iterable[tuple[int, Reading]]
+                             ) -> tuple[np.ndarray, np.ndarray | None]:
+        """(sum of log P(reading | h) over the readings taken one by one, shape (H,); sum of
+        log P(reading | h, s) over the readings taken sample by sample, shape (H, S), or None)."""
+        answered = list(answered)
+        single = np.zeros(self.n_hypotheses)
+        joint = None
+        together = [(t, r) for t, r in answered if self.tests[t].bandwidth is not None]
+        widen = joint_widening(len(together), self.table.samples.shape[2])
         with np.errstate(divide="ignore"):  # a noise-free model rules out with log 0 = -inf
             for t, reading in answered:
-                total += np.log(self.tests[t].likelihood(reading))
-        return total
+                per_sample = self.sample_likelihood(t, reading, widen)
+                if per_sample is None:
+                    single += np.log(self.tests[t].likelihood(reading))
+                else:
+                    logs = np.log(per_sample)
+                    joint = logs if joint is None else joint + logs
+        return single, joint
+
+    def log_likelihood(self, answered: Iterable[tuple[int, Reading]]) -> np.ndarray:
+        """log P(readings | h), shape (H,).
+
+        Readings of meter tests are taken jointly, sample by sample: two readings that both
+        follow one part value (the cranking current through two cables, the battery's charge at
+        two fuse slots) count as the one quantity they measure, not as two independent pieces
+        of evidence. P(readings | h) is the mean over the hypothesis' Monte Carlo samples of the
+        product of the readings' likelihoods under each sample (the particle estimate of the
+        marginal likelihood: Doucet, de Freitas & Gordon, eds., "Sequential Monte Carlo Methods
+        in Practice", Springer 2001). Observations, whose answers do not depend on the part
+        values here, multiply in as they are.
+        """
+        single, joint = self.split_log_likelihood(answered)
+        if joint is None:
+            return single
+        return single + logsumexp(joint, axis=1) - math.log(joint.shape[1])
+
+
+def joint_widening(d: int, n: int) -> float:
+    """How much wider each reading's kernel is when ``d`` readings are taken jointly over ``n``
+    samples: the normal-reference bandwidth of a d-dimensional product kernel,
+    (4 / ((d + 2) n))^(1 / (d + 4)), over the one-dimensional one (Silverman, "Density Estimation
+    for Statistics and Data Analysis", Chapman & Hall 1986, section 4.3.2). 1 for one reading."""
+    if d <= 1 or n < 2:
+        return 1.0
+    return float((4.0 / ((d + 2) * n)) ** (1.0 / (d + 4)) / (4.0 / (3 * n)) ** 0.2)
 
 
 def build_model(table: PredictionTable, *, outlier: float = DEFAULT_OUTLIER,
@@ -369,7 +450,7 @@ def _meter_outcomes(table: PredictionTable, t: int, info: TestInfo, eps: float,
     compact = np.concatenate([model[:, used], np.zeros((n_h, 1)), model[:, n_bins:]], axis=1)
     floor = np.concatenate([np.ones(used.size), [n_bins - used.size], [1.0, 1.0]]) / width
     return TestOutcomes(t, info, _mix(compact, floor, eps), compact, eps, scale, du, first, n_bins,
-                        columns, used + first)
+                        columns, used + first, None if noise_free else bw)
 
 
 # --------------------------------------------------------------------------- the posterior

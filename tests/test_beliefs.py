@@ -4,16 +4,18 @@ from __future__ import annotations
 
 import math
 import warnings
+from dataclasses import replace
 
 import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from assistant.beliefs import build_model, entropy_bits, format_value, normalise_log, posterior
+from assistant.beliefs import build_model, entropy_bits, format_value, joint_widening, normalise_log, posterior
 from assistant.errors import ReadingError
+from assistant.predict import PredictionTable
 from assistant.reading import Reading
-from synthetic_tables import tiny_lamp
+from synthetic_tables import TINY_DEFAULT, TINY_SPEC, build_table, hypotheses_of, infos_of, tiny_lamp
 
 LOADED, TABLE = tiny_lamp()
 MODEL = build_model(TABLE)
@@ -119,7 +121,9 @@ def test_posterior_is_always_a_distribution(answers: list) -> None:  # type: ign
 
 
 def test_posterior_equals_pgmpy_variable_elimination() -> None:
-    """Reference: pgmpy VariableElimination (exact inference) on the same discrete model, to 1e-9."""
+    """Reference: pgmpy VariableElimination (exact inference), to 1e-9, on the same model drawn as
+    a Bayesian network: the hypothesis H, the simulated vehicle W (one of the table's Monte Carlo
+    samples, uniform), a meter reading T given (H, W), an observation given H alone."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # pgmpy's own import-time deprecation notices
         from pgmpy.factors.discrete import TabularCPD
@@ -129,22 +133,89 @@ def test_posterior_equals_pgmpy_variable_elimination() -> None:
     answers = {"look_fuse": Reading("no", outcome="no"), "v_feed": Reading("12.52", value=12.52),
                "drop_gnd": Reading("0.01", value=0.01), "r_lamp": Reading("14.2", value=14.2)}
     prior = np.array([h.prior for h in TABLE.hypotheses])
-    n_h = prior.size
-    edges = [("H", f"T_{t}") for t in answers]
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        net = DiscreteBayesianNetwork(edges)
-        cpds = [TabularCPD("H", n_h, prior.reshape(n_h, 1))]
-        evidence = {}
-        for test_id, reading in answers.items():
-            outcomes = MODEL.tests[_t(test_id)]
+    n_h, n_s = prior.size, TABLE.samples.shape[2]
+    edges = []
+    cpds = [TabularCPD("H", n_h, prior.reshape(n_h, 1)), TabularCPD("W", n_s, np.full((n_s, 1), 1.0 / n_s))]
+    evidence = {}
+    # three meter readings taken together: each kernel as wide as the posterior takes it
+    widen = joint_widening(3, n_s)
+    for test_id, reading in answers.items():
+        t = _t(test_id)
+        per_sample = MODEL.sample_likelihood(t, reading, widen)
+        if per_sample is None:  # the observation: its answer given H
+            outcomes = MODEL.tests[t]
+            edges.append(("H", f"T_{test_id}"))
             cpds.append(TabularCPD(f"T_{test_id}", outcomes.n_outcomes, outcomes.probs.T,
                                    evidence=["H"], evidence_card=[n_h]))
             k = outcomes.outcome_index(reading)
             assert k is not None
             evidence[f"T_{test_id}"] = k
+        else:  # a meter reading given (H, W): "this reading" or "any other", columns h * S + s
+            like = per_sample.ravel()
+            edges += [("H", f"T_{test_id}"), ("W", f"T_{test_id}")]
+            cpds.append(TabularCPD(f"T_{test_id}", 2, np.stack([like, 1.0 - like]),
+                                   evidence=["H", "W"], evidence_card=[n_h, n_s]))
+            evidence[f"T_{test_id}"] = 0
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        net = DiscreteBayesianNetwork(edges)
         net.add_cpds(*cpds)
         result = VariableElimination(net).query(["H"], evidence=evidence, show_progress=False)
+    assert widen > 1.0
     ours = posterior(np.log(prior), MODEL, [(_t(k), r) for k, r in answers.items()])
     np.testing.assert_allclose(ours, result.values, rtol=0, atol=1e-9)
     assert ours[TABLE.hypothesis_index("lamp.high_resistance")] > 0.9
+
+
+def test_one_reading_alone_is_the_per_sample_mean() -> None:
+    """The per-sample likelihoods of one reading average to the test's outcome column."""
+    for test_id, reading in (("v_feed", Reading("12.52", value=12.52)), ("r_lamp", Reading("OL", overload=True)),
+                             ("drop_gnd", Reading("0.01", value=0.01))):
+        t = _t(test_id)
+        per_sample = MODEL.sample_likelihood(t, reading)
+        assert per_sample is not None
+        np.testing.assert_allclose(per_sample.mean(axis=1), MODEL.tests[t].likelihood(reading), rtol=1e-6)
+    assert MODEL.sample_likelihood(_t("look_fuse"), Reading("no", outcome="no")) is None
+
+
+def _with_copy(table: PredictionTable, test_id: str) -> PredictionTable:
+    """The table with a second test that reads exactly what ``test_id`` reads, sample by sample."""
+    t = table.test_index(test_id)
+    copy = replace(table.tests[t], id=f"{test_id}_again")
+
+    def doubled(a: np.ndarray) -> np.ndarray:
+        return np.concatenate([a, a[:, t:t + 1, :]], axis=1)
+
+    return replace(table, tests=table.tests + (copy,), samples=doubled(table.samples),
+                   sigma=doubled(table.sigma), resolution=doubled(table.resolution))
+
+
+def test_two_readings_of_one_quantity_count_about_once() -> None:
+    """Two meters on one quantity: under each sample the second reading adds only what the
+    meter's error and the kernel leave open, so the log-likelihood ratio of two hypotheses with
+    the same spread stays near the ratio of one reading (taken one by one, it would double)."""
+    spec = dict(TINY_SPEC)
+    spec["lamp.high_resistance"] = {**spec["lamp.high_resistance"], "drop_gnd": (3.0, 0.3)}
+    spec["strap.high_resistance"] = {**spec["strap.high_resistance"], "drop_gnd": (3.6, 0.3)}
+    table = _with_copy(build_table(hypotheses_of(LOADED), infos_of(LOADED), spec, default=TINY_DEFAULT),
+                       "drop_gnd")
+    model = build_model(table)
+    reading = Reading("3.10", value=3.1)
+    first, second = table.test_index("drop_gnd"), table.test_index("drop_gnd_again")
+    once = model.log_likelihood([(first, reading)])
+    twice = model.log_likelihood([(first, reading), (second, reading)])
+    near, far = table.hypothesis_index("lamp.high_resistance"), table.hypothesis_index("strap.high_resistance")
+    ratio_once, ratio_twice = once[near] - once[far], twice[near] - twice[far]
+    assert ratio_once > 1.0  # 3.1 V is likelier around 3.0 V than around 3.6 V
+    assert 0.0 < ratio_twice < 1.25 * ratio_once  # one by one: 2 * ratio_once
+
+
+@pytest.mark.parametrize("d, constant", [(2, 1.0), (3, 0.969)])
+def test_joint_widening_follows_the_normal_reference_rule(d: int, constant: float) -> None:
+    """Silverman (1986), Table 4.1, from memory: the normal-reference bandwidth of the Gaussian
+    product kernel is A(d) n^(-1/(d+4)) standard deviations, A = 1.059 in one dimension, 1.0 in
+    two, 0.969 in three."""
+    n = 64
+    expected = constant * n ** (-1 / (d + 4)) / (1.059 * n ** -0.2)
+    assert joint_widening(d, n) == pytest.approx(expected, rel=2e-3)
+    assert joint_widening(1, n) == 1.0 and joint_widening(0, n) == 1.0
