@@ -152,15 +152,16 @@ def _progress_bar(done: int, total: int) -> None:
 
 def _cmd_simulate(args: argparse.Namespace) -> int:
     from assistant import predict as predict_module
-    from assistant.simulate import simulate
+    from assistant.simulate import VEHICLE_SEED_OFFSET, simulate
 
     if args.trials < 1:
         raise OhmtrailError(f"--trials must be at least 1, not {args.trials}")
     loaded = check_ruleset(load_with_overlays(args))
     table = predict_module.predict(loaded, seed=args.seed)
+    vehicles = predict_module.predict(loaded, seed=args.seed + VEHICLE_SEED_OFFSET)
     show_bar = not args.json and sys.stdout.isatty() and sys.stderr.isatty()
     result = simulate(loaded, table, trials=args.trials, seed=args.seed, threshold=args.threshold,
-                      progress=_progress_bar if show_bar else None)
+                      progress=_progress_bar if show_bar else None, vehicles=vehicles)
     if args.json:
         print(json.dumps(result.to_json(), indent=2))
         return 0

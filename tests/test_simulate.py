@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -85,3 +86,25 @@ def test_cli_simulate_table_and_bad_trials(monkeypatch: pytest.MonkeyPatch,
     assert main(["simulate", str(TINY_LAMP), "--trials", "0"]) == 1
     _, err = capsys.readouterr()
     assert err.count("\n") == 1 and "--trials" in err
+
+
+def test_vehicles_come_from_their_own_table() -> None:
+    """The simulated vehicles are drawn from the ``vehicles`` table: a second Monte Carlo run
+    (here: the same one, giving the same figures; then one where every vehicle is healthy, so the
+    planner names "none" and scores only on it)."""
+    same = simulate(LOADED, TABLE, trials=3, seed=4, vehicles=TABLE).to_json()
+    assert same == simulate(LOADED, TABLE, trials=3, seed=4).to_json()
+    none = TABLE.hypothesis_index("none")
+    healthy = replace(TABLE, samples=np.repeat(TABLE.samples[none:none + 1], len(TABLE.hypotheses), axis=0),
+                      observations={t: np.repeat(rows[none:none + 1], len(TABLE.hypotheses), axis=0)
+                                    for t, rows in TABLE.observations.items()})
+    result = simulate(LOADED, TABLE, trials=3, seed=4, vehicles=healthy)
+    right = {row["hypothesis"]: row["accuracy"] for row in result.per_hypothesis}
+    assert right["none"] == 1.0
+    assert max(a for h, a in right.items() if h != "none") == 0.0
+
+
+def test_vehicles_table_must_match() -> None:
+    other = replace(TABLE, hypotheses=TABLE.hypotheses[:-1], samples=TABLE.samples[:-1])
+    with pytest.raises(ValueError, match="same hypotheses and tests"):
+        simulate(LOADED, TABLE, trials=1, vehicles=other)
