@@ -93,8 +93,9 @@ def _stop_lamp_table():  # type: ignore[no-untyped-def]
 def test_voltage_path_runs_from_the_supply_outward() -> None:
     table = _stop_lamp_table()
     ids = [table.tests[t].id for t in voltage_path(STOP_LAMPS.ruleset, table)]
-    assert ids[:4] == ["v_fuse", "v_switch_in", "v_switch_out", "v_splice"]  # pedal pressed at SW_OUT
-    assert set(ids[4:]) == {"v_left_feed", "v_right_feed", "v_high_feed"}
+    # the battery post, then along the feed; pedal pressed at SW_OUT
+    assert ids[:5] == ["v_battery_lit", "v_fuse", "v_switch_in", "v_switch_out", "v_splice"]
+    assert set(ids[5:]) == {"v_left_feed", "v_right_feed", "v_high_feed"}
 
 
 def test_voltage_path_is_the_same_in_every_process() -> None:
@@ -126,9 +127,9 @@ def _reader(table, good_upto: int, path: list[int]):  # type: ignore[no-untyped-
 def test_linear_walk_stops_at_the_first_good_point_from_the_far_end() -> None:
     table = _stop_lamp_table()
     path = voltage_path(STOP_LAMPS.ruleset, table)
-    walk = linear_walk(table, path, _reader(table, 3, path))  # good up to the splice
+    walk = linear_walk(table, path, _reader(table, 4, path))  # good up to the splice
     assert [table.tests[t].id for t in walk.tests][-1] == "v_splice"
-    assert len(walk.tests) == len(path) - 3
+    assert len(walk.tests) == len(path) - 4
     assert walk.minutes == sum(table.tests[t].cost_minutes for t in walk.tests)
 
 
@@ -137,4 +138,4 @@ def test_half_split_halves_the_stretch_in_doubt() -> None:
     path = voltage_path(STOP_LAMPS.ruleset, table)
     for good_upto in range(-1, len(path)):
         walk = half_split(table, path, _reader(table, good_upto, path))
-        assert len(walk.tests) <= int(np.ceil(np.log2(len(path) + 1)))  # 6 points, 7 stretches: 3 tests
+        assert len(walk.tests) <= int(np.ceil(np.log2(len(path) + 1)))  # 8 points, 9 stretches: 4 tests
