@@ -12,9 +12,12 @@ by sqrt(3)) and by a kernel bandwidth from the spread of the samples themselves 
 rule), integrated over each bin. Its small part (``outlier``, 1 % by default) is a flat floor:
 a probe that slipped or a wrong pin, so that one bad reading makes no hypothesis impossible.
 
-The posterior is ``log prior + sum of log P[h, k_reading]``, normalised with log-sum-exp: never
-NaN, never negative, always summing to one (de Kleer & Williams, "Diagnosing multiple faults",
-Artificial Intelligence 32, 1987, for the sequential Bayes update over candidates).
+The posterior is ``log prior + log P[h, readings]``, normalised with log-sum-exp: never NaN,
+never negative, always summing to one (de Kleer & Williams, "Diagnosing multiple faults",
+Artificial Intelligence 32, 1987, for the sequential Bayes update over candidates). Meter
+readings enter it sample by sample (:meth:`EvidenceModel.log_likelihood`): one Monte Carlo
+sample is one vehicle, so readings that follow one part value are not counted twice. The
+planner's outcome rows ``P[h, k]`` stay the per-test marginals.
 """
 
 from __future__ import annotations
