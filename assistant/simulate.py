@@ -5,9 +5,10 @@ random Monte Carlo sample of the circuit plus the meter's error, shown at the me
 resolution); the planner runs on them to its stop, and the linear walk and half-split run on
 the very same draws. The vehicles come from a second Monte Carlo run of the circuit (the
 ``vehicles`` table, its own seed), not from the samples the planner's evidence model was built
-from: the planner is scored on vehicles it has not seen, as it would be in a workshop. Then the noise-free version of the problem (each hypothesis shows its
-median reading, binned as the planner bins it) gives the planner's expected minutes and the
-exact optimum. Means are weighted by the hypotheses' priors.
+from: the planner is scored on vehicles it has not seen, as it would be in a workshop. Then
+the noise-free version of the problem (each hypothesis shows its median reading, binned as the
+planner bins it) gives the planner's expected minutes and the exact optimum. Means are
+weighted by the hypotheses' priors.
 """
 
 from __future__ import annotations
