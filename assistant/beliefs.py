@@ -216,12 +216,11 @@ class EvidenceModel:
         None where the reading tells every sample of a hypothesis the same (observations, the
         noise-free model, a value off the grid, the "elsewhere" column).
         """
+        if not self._per_sample(t, reading):
+            return None
         o = self.tests[t]
-        if o.bandwidth is None:
-            return None
         k = o.outcome_index(reading)
-        if k is None or k == o.n_values:
-            return None
+        assert k is not None
         x = np.asarray(self.table.samples[:, t, :], dtype=float)
         if k == o.n_values + 1:
             mass = np.isneginf(x).astype(float)
@@ -247,6 +246,14 @@ class EvidenceModel:
         like[~known] = o.probs[~known, k][:, None]
         return like
 
+    def _per_sample(self, t: int, reading: Reading) -> bool:
+        """Whether a reading tells one sample of a hypothesis from another (see sample_likelihood)."""
+        o = self.tests[t]
+        if o.bandwidth is None:
+            return False
+        k = o.outcome_index(reading)
+        return k is not None and k != o.n_values
+
     def split_log_likelihood(self, answered: Iterable[tuple[int, Reading]]
                              ) -> tuple[np.ndarray, np.ndarray | None]:
         """(sum of log P(reading | h) over the readings taken one by one, shape (H,); sum of
@@ -254,8 +261,7 @@ class EvidenceModel:
         answered = list(answered)
         single = np.zeros(self.n_hypotheses)
         joint = None
-        together = [(t, r) for t, r in answered if self.tests[t].bandwidth is not None]
-        widen = joint_widening(len(together), self.table.samples.shape[2])
+        widen = joint_widening(sum(self._per_sample(t, r) for t, r in answered), self.table.samples.shape[2])
         with np.errstate(divide="ignore"):  # a noise-free model rules out with log 0 = -inf
             for t, reading in answered:
                 per_sample = self.sample_likelihood(t, reading, widen)
