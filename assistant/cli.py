@@ -523,7 +523,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("simulate", help="simulate diagnoses of every fault and compare with the walks",
                        description="For every hypothesis draw readings from the circuit model with "
-                       "meter noise, run the planner to its stop, and report accuracy, tests and "
+                       "meter noise (vehicles from a second Monte Carlo run, not the samples the "
+                       "planner's evidence was built from), run the planner to its stop, and report "
+                       "accuracy, tests and "
                        "minutes (prior-weighted) beside the linear walk, half-split and the noise-free "
                        "optimum.")
     p.add_argument("ruleset", metavar="RULESET", help="ruleset file")
