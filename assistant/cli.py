@@ -152,13 +152,13 @@ def _progress_bar(done: int, total: int) -> None:
 
 def _cmd_simulate(args: argparse.Namespace) -> int:
     from assistant import predict as predict_module
-    from assistant.simulate import VEHICLE_SEED_OFFSET, simulate
+    from assistant.simulate import simulate, vehicle_table
 
     if args.trials < 1:
         raise OhmtrailError(f"--trials must be at least 1, not {args.trials}")
     loaded = check_ruleset(load_with_overlays(args))
     table = predict_module.predict(loaded, seed=args.seed)
-    vehicles = predict_module.predict(loaded, seed=args.seed + VEHICLE_SEED_OFFSET)
+    vehicles = vehicle_table(loaded, seed=args.seed)
     show_bar = not args.json and sys.stdout.isatty() and sys.stderr.isatty()
     result = simulate(loaded, table, trials=args.trials, seed=args.seed, threshold=args.threshold,
                       progress=_progress_bar if show_bar else None, vehicles=vehicles)
@@ -335,10 +335,13 @@ def _cmd_check(args: argparse.Namespace) -> int:
 
 def _cmd_coverage(args: argparse.Namespace) -> int:
     from assistant.predict import predict
+    from assistant.simulate import vehicle_table
 
     loaded = check_ruleset(load_with_overlays(args))
     table = predict(loaded, samples=args.samples, seed=args.seed)
-    result = coverage(loaded, table, runs=args.runs, seed=args.seed, separation=args.separation)
+    vehicles = vehicle_table(loaded, samples=args.samples, seed=args.seed) if args.runs > 0 else None
+    result = coverage(loaded, table, runs=args.runs, seed=args.seed, separation=args.separation,
+                      vehicles=vehicles)
     if args.json:
         print(json.dumps(result.to_json(), indent=2))
     else:
@@ -358,6 +361,7 @@ def _meter(args: argparse.Namespace) -> tuple[MeterProfile | None, str]:
 
 def _source(args: argparse.Namespace, engine: Engine, *, narrate: bool) -> ReadingSource:
     """The reading source the options ask for: an answers file, the simulator, or the prompt."""
+    from assistant.simulate import vehicle_table
     from assistant.sources import AnswersFileSource, Narrated, SimulatedSource, load_answers
 
     loaded, table = engine.loaded, engine.table
@@ -366,7 +370,9 @@ def _source(args: argparse.Namespace, engine: Engine, *, narrate: bool) -> Readi
         source = AnswersFileSource(load_answers(args.answers, loaded.ruleset, table.tests))
     elif args.simulate:
         intake = load_answers(args.context, loaded.ruleset, table.tests).intake if args.context else None
-        source = SimulatedSource(table, args.simulate, args.seed, intake)
+        # the vehicle comes from a second Monte Carlo run, not from the samples the engine reasons on
+        vehicles = vehicle_table(loaded, engine.pages.meter, samples=int(table.samples.shape[2]))
+        source = SimulatedSource(vehicles, args.simulate, args.seed, intake)
     else:
         from assistant.prompt import PromptSource
 

@@ -9,9 +9,10 @@ For an author deciding which tests to add or drop:
   tells apart are joined transitively, as the engine groups them when it concludes.
 - **expected minutes to isolate** each fault: the mean cost of the tests the diagnosis engine
   asks before it concludes, over ``runs`` simulated diagnoses with readings drawn under that
-  fault (``assistant.simulate.draw_reading``), each started from the first complaint that leads
-  to the fault (none for "none" or a fault no complaint leads to), and how often it concluded
-  that very fault;
+  fault (``assistant.simulate.draw_reading``: one simulated vehicle per run, every reading from
+  its one Monte Carlo sample, from the ``vehicles`` table where one is given), each started from
+  the first complaint that leads to the fault (none for "none" or a fault no complaint leads
+  to), and how often it concluded that very fault;
 - **tests that never change any decision**: tests that tell no two hypotheses apart, and tests
   the engine never chose in any of the simulated diagnoses (candidates to drop);
 - **faults no complaint leads to**, and **the operating states the tests need**.
@@ -36,7 +37,7 @@ from assistant.overlay import apply_priors
 from assistant.predict import PredictionTable
 from assistant.ruleset.load import LoadedRuleset
 from assistant.ruleset.model import Ruleset
-from assistant.simulate import draw_reading
+from assistant.simulate import draw_reading, vehicles_or
 
 log = logging.getLogger("ohmtrail.coverage")
 
@@ -150,16 +151,24 @@ DrawReading = Callable[..., Any]
 
 def isolation_minutes(loaded: LoadedRuleset, table: PredictionTable, hypothesis: int, runs: int,
                       rng: np.random.Generator, draw: DrawReading | None = None,
-                      context: Context | None = None) -> tuple[float, float, set[str]]:
-    """Mean minutes to conclude under one hypothesis, the fraction concluded right, and the tests asked."""
+                      context: Context | None = None, *,
+                      vehicles: PredictionTable | None = None) -> tuple[float, float, set[str]]:
+    """Mean minutes to conclude under one hypothesis, the fraction concluded right, and the tests asked.
+
+    Each run is one simulated vehicle: one Monte Carlo sample of ``vehicles`` (a second run of
+    the circuit, :func:`assistant.simulate.vehicle_table`; None: ``table`` itself) behind all its
+    readings, ``draw(vehicles, hypothesis, test, rng, sample=...)``.
+    """
     if draw is None:
         draw = draw_reading
+    source = vehicles_or(table, vehicles)
     index = {t.id: i for i, t in enumerate(table.tests)}
     target = table.hypotheses[hypothesis].id
     minutes: list[float] = []
     right = 0
     asked: set[str] = set()
     for _ in range(runs):
+        world = int(rng.integers(source.samples.shape[2]))
         state = Diagnosis.start(loaded, table, context or Context())
         spent = 0.0
         for _step in range(2 * len(table.tests) + 2):
@@ -168,7 +177,7 @@ def isolation_minutes(loaded: LoadedRuleset, table: PredictionTable, hypothesis:
                 right += step.diagnosis == target
                 break
             t = index[step.test_id]
-            state = state.answer(step.test_id, draw(table, hypothesis, t, rng))
+            state = state.answer(step.test_id, draw(source, hypothesis, t, rng, sample=world))
             spent += step.cost_minutes  # its preparations included
             asked.add(step.test_id)
         minutes.append(spent)
@@ -185,8 +194,13 @@ def _complaints_leading_to(ruleset: Ruleset, fault_id: str) -> tuple[str, ...]:
 
 
 def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, seed: int = 0,
-             separation: float = DEFAULT_SEPARATION, draw: DrawReading | None = None) -> Coverage:
-    """The coverage report of a ruleset from its prediction table (``runs`` 0: no simulation)."""
+             separation: float = DEFAULT_SEPARATION, draw: DrawReading | None = None,
+             vehicles: PredictionTable | None = None) -> Coverage:
+    """The coverage report of a ruleset from its prediction table (``runs`` 0: no simulation).
+
+    ``vehicles``: the table the simulated vehicles are drawn from (the command passes
+    :func:`assistant.simulate.vehicle_table`); None draws them from ``table``.
+    """
     rs = loaded.ruleset
     table = apply_priors(table, rs)
     groups, partners, useless = ambiguity_groups(table, separation)
@@ -201,7 +215,8 @@ def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, se
         if runs > 0 and hyp.prior > 0:
             # the technician starts from a complaint: the first that leads to this fault
             context = Context(complaint=complaints[0]) if complaints else Context()
-            minutes, right, asked = isolation_minutes(loaded, table, h, runs, rng, draw, context)
+            minutes, right, asked = isolation_minutes(loaded, table, h, runs, rng, draw, context,
+                                                      vehicles=vehicles)
             chosen |= asked
         faults.append(FaultCoverage(hyp.id, hyp.prior, group_of.get(hyp.id), partners.get(hyp.id, ()),
                                     minutes, right, complaints))

@@ -33,7 +33,8 @@ from assistant.baselines import (
 from assistant.beliefs import EvidenceModel, build_model, format_value, posterior
 from assistant.diagnosis import Conclusion, Context, Diagnosis, evidence_model
 from assistant.planner import PlannerSettings, ambiguity_groups
-from assistant.predict import PredictionTable
+from assistant.meter import MeterProfile
+from assistant.predict import PredictionTable, predict
 from assistant.reading import Reading
 from assistant.ruleset.load import LoadedRuleset
 
@@ -44,6 +45,25 @@ OPTIMUM_SECONDS = 60.0
 # The simulated vehicles' Monte Carlo seed is the model's plus this: a stream of part values and
 # fault magnitudes the evidence model was not built from.
 VEHICLE_SEED_OFFSET = 1_000_000
+
+
+def vehicle_table(loaded: LoadedRuleset, meter: MeterProfile | None = None, *, samples: int = 64,
+                  seed: int = 0) -> PredictionTable:
+    """The simulated vehicles for a model predicted with ``seed``: the same circuit, meter and
+    sample count, Monte Carlo seed ``seed`` + :data:`VEHICLE_SEED_OFFSET`. Every simulation that
+    scores the planner (``simulate``, ``diagnose --simulate``, ``coverage``) draws from it."""
+    return predict(loaded, meter, samples=samples, seed=seed + VEHICLE_SEED_OFFSET)
+
+
+def vehicles_or(table: PredictionTable, vehicles: PredictionTable | None) -> PredictionTable:
+    """The table to draw simulated vehicles from: ``vehicles``, which must list the same
+    hypotheses and tests as ``table`` (ValueError if not), else ``table`` itself."""
+    if vehicles is None:
+        return table
+    if ([h.id for h in vehicles.hypotheses] != [h.id for h in table.hypotheses]
+            or [t.id for t in vehicles.tests] != [t.id for t in table.tests]):
+        raise ValueError("the vehicles' table must have the same hypotheses and tests as the planner's")
+    return vehicles
 
 
 def draw_reading(table: PredictionTable, hypothesis_index: int, test_index: int,
@@ -166,10 +186,7 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
     """
     if trials < 1:
         raise ValueError("trials must be at least 1")
-    source = table if vehicles is None else vehicles
-    if ([h.id for h in source.hypotheses] != [h.id for h in table.hypotheses]
-            or [t.id for t in source.tests] != [t.id for t in table.tests]):
-        raise ValueError("the vehicles' table must have the same hypotheses and tests as the planner's")
+    source = vehicles_or(table, vehicles)
     rng = np.random.default_rng(seed)
     model = evidence_model(table)
     hyps = table.hypotheses

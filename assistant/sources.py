@@ -260,6 +260,9 @@ class SimulatedSource:
 
     At the stop it does the repair the diagnosis names; the verification reading is drawn as the
     circuit would then read: healthy if the repair removed the simulated fault, else still faulty.
+    ``table`` is the one the vehicle is drawn from: ``ohmtrail diagnose --simulate`` passes
+    :func:`assistant.simulate.vehicle_table`, a second Monte Carlo run of the circuit, so that the
+    vehicle is not one of the samples the engine reasons on.
     """
 
     def __init__(self, table: PredictionTable, hypothesis_id: str, seed: int = 0,

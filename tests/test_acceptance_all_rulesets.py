@@ -2,8 +2,8 @@
 holding F, for every hypothesis `ohmtrail predict` lists (``none`` included), for every bundled ruleset.
 
 Each session runs through the library as the command runs it (``Engine.build``,
-``SimulatedSource``, ``Session.run``, ``summary_json``) on one store, with seed 0, so that the
-whole matrix stays fast; one session per ruleset also goes through ``assistant.cli.main`` itself.
+``SimulatedSource`` on the vehicles of ``vehicle_table``, ``Session.run``, ``summary_json``) on
+one store, with seed 0, so that the whole matrix stays fast; one session per ruleset also goes through ``assistant.cli.main`` itself.
 A group conclusion must reach the threshold with the true fault inside it, and say so in the
 JSON: ``diagnosis`` (its most probable member), ``probability``, ``ambiguity_group``,
 ``group_probability``.
@@ -19,6 +19,7 @@ import pytest
 from assistant.cli import main
 from assistant.ruleset.load import load_ruleset
 from assistant.session import Engine, Session, summary_json
+from assistant.simulate import vehicle_table
 from assistant.sources import SimulatedSource
 from assistant.store import open_store
 
@@ -41,13 +42,14 @@ def test_every_fault_of_the_ruleset_is_named_or_in_the_named_group(
         path: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     loaded = load_ruleset(path)
     engine = Engine.build(loaded)
+    vehicles = vehicle_table(loaded)  # as the command draws them: not the engine's own samples
     threshold = loaded.ruleset.threshold
     db = f"sqlite:///{tmp_path / 'sessions.db'}"
     missed: dict[str, object] = {}
     groups: list[str] = []
     with open_store(db) as store:
         for hypothesis in engine.table.hypotheses:
-            source = SimulatedSource(engine.table, hypothesis.id, seed=0)
+            source = SimulatedSource(vehicles, hypothesis.id, seed=0)
             record = Session.begin(store, engine, source, session_id=hypothesis.id).run(source)
             data = summary_json(record)
             assert data["diagnosis"] is not None, f"{hypothesis.id}: {data['stopped_because']}"

@@ -15,6 +15,7 @@ import pytest
 from assistant.cli import main
 from assistant.ruleset.load import load_ruleset
 from assistant.session import Engine, Session
+from assistant.simulate import vehicle_table
 from assistant.sources import SimulatedSource
 from assistant.store import open_store
 from tests.conftest import STOP_LAMPS
@@ -23,11 +24,13 @@ from tests.conftest import STOP_LAMPS
 @pytest.mark.slow
 def test_every_fault_is_named_or_left_open(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     db = f"sqlite:///{tmp_path / 'sessions.db'}"
-    engine = Engine.build(load_ruleset(STOP_LAMPS))
+    loaded = load_ruleset(STOP_LAMPS)
+    engine = Engine.build(loaded)
+    vehicles = vehicle_table(loaded)  # as `diagnose --simulate` draws them
     named, undecided, wrong = [], [], []
     with open_store(db) as store:
         for hypothesis in engine.table.hypotheses:
-            source = SimulatedSource(engine.table, hypothesis.id, seed=0)
+            source = SimulatedSource(vehicles, hypothesis.id, seed=0)
             record = Session.begin(store, engine, source, session_id=hypothesis.id).run(source)
             if record.diagnosis == hypothesis.id or hypothesis.id in record.ambiguity_group:
                 named.append(hypothesis.id)

@@ -9,6 +9,7 @@ import subprocess
 import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from assistant.cli import main
@@ -93,6 +94,30 @@ def test_diagnose_simulated(capsys: pytest.CaptureFixture[str], db: str, fault: 
     assert code == 0, err
     data = json.loads(out)
     assert data["diagnosis"] == fault or fault in data["ambiguity_group"]
+
+
+def test_the_simulated_vehicle_is_not_one_of_the_engines_samples(
+        capsys: pytest.CaptureFixture[str], db: str, monkeypatch: pytest.MonkeyPatch) -> None:
+    """`diagnose --simulate` draws the vehicle from the second Monte Carlo run (vehicle_table),
+    with the engine's meter and sample count, as `ohmtrail simulate` does."""
+    import assistant.sources
+    from assistant.predict import predict
+    from assistant.simulate import VEHICLE_SEED_OFFSET
+
+    tables = []
+    real = assistant.sources.SimulatedSource
+
+    def capture(table, *args, **kwargs):  # type: ignore[no-untyped-def]
+        tables.append(table)
+        return real(table, *args, **kwargs)
+
+    monkeypatch.setattr(assistant.sources, "SimulatedSource", capture)
+    code, _, err = run(capsys, "diagnose", str(STOP_LAMPS), "--simulate", "f12.blown", "--json", "--db", db)
+    assert code == 0, err
+    loaded = load_ruleset(STOP_LAMPS)
+    drawn, own = tables[0].samples, predict(loaded).samples
+    assert drawn.shape == own.shape and not np.array_equal(np.nan_to_num(drawn), np.nan_to_num(own))
+    np.testing.assert_array_equal(drawn, predict(loaded, seed=VEHICLE_SEED_OFFSET).samples)
 
 
 def test_same_seed_same_session(capsys: pytest.CaptureFixture[str], db: str) -> None:

@@ -112,3 +112,48 @@ def test_bad_options_are_one_line(capsys: pytest.CaptureFixture[str], tmp_path: 
     assert "must be a fraction" in capsys.readouterr().err
     assert main(["coverage", str(tmp_path / "nope.yaml")]) == 1
     assert capsys.readouterr().err.count("\n") == 1
+
+
+def test_each_run_is_one_vehicle_from_the_vehicles_table() -> None:
+    """isolation_minutes draws every reading of a run from one Monte Carlo sample of the
+    ``vehicles`` table (one simulated vehicle), as ``ohmtrail simulate`` does."""
+    from dataclasses import replace
+
+    from assistant.coverage import isolation_minutes
+    from assistant.diagnosis import Context
+    from assistant.simulate import draw_reading
+    from synthetic_tables import tiny_lamp
+
+    loaded, table = tiny_lamp()
+    vehicles = replace(table, samples=table.samples.copy())
+    seen: list[tuple[int, int | None]] = []
+
+    def spy(source, h, t, rng, *, sample=None):  # type: ignore[no-untyped-def]
+        seen.append((id(source), sample))
+        return draw_reading(source, h, t, rng, sample=sample)
+
+    h = table.hypothesis_index("fuse.blown")
+    isolation_minutes(loaded, table, h, 5, np.random.default_rng(2), spy, Context(), vehicles=vehicles)
+    assert seen and {s for s, _ in seen} == {id(vehicles)}
+    assert all(sample is not None for _, sample in seen)
+    assert len({sample for _, sample in seen}) > 1  # five vehicles, not one
+
+
+def test_coverage_scores_on_the_vehicles_it_is_given() -> None:
+    """With vehicles that are all healthy, only "none" is ever concluded right."""
+    from dataclasses import replace
+
+    from assistant.coverage import coverage
+    from synthetic_tables import tiny_lamp
+
+    loaded, table = tiny_lamp()
+    none = table.hypothesis_index("none")
+    healthy = replace(table, samples=np.repeat(table.samples[none:none + 1], len(table.hypotheses), axis=0),
+                      observations={t: np.repeat(rows[none:none + 1], len(table.hypotheses), axis=0)
+                                    for t, rows in table.observations.items()})
+    right = {f.id: f.concluded_right for f in coverage(loaded, table, runs=3, vehicles=healthy).faults
+             if f.concluded_right is not None}
+    assert right["none"] == 1.0 and max(r for h, r in right.items() if h != "none") == 0.0
+    mismatched = replace(table, hypotheses=table.hypotheses[:-1], samples=table.samples[:-1])
+    with pytest.raises(ValueError, match="same hypotheses and tests"):
+        coverage(loaded, table, runs=1, vehicles=mismatched)
