@@ -220,7 +220,7 @@ class EvidenceModel:
             return None
         o = self.tests[t]
         k = o.outcome_index(reading)
-        assert k is not None
+        assert k is not None and o.bandwidth is not None  # what _per_sample checked
         x = np.asarray(self.table.samples[:, t, :], dtype=float)
         if k == o.n_values + 1:
             mass = np.isneginf(x).astype(float)
@@ -342,7 +342,7 @@ def _bandwidth(x: np.ndarray) -> float:
     sd = float(np.std(x, ddof=1))
     q75, q25 = np.percentile(x, [75, 25])
     spread = min(sd, float(q75 - q25) / 1.34) if q75 > q25 else sd
-    return 0.9 * spread * x.size ** -0.2
+    return float(0.9 * spread * x.size ** -0.2)
 
 
 def _bandwidths(u: np.ndarray, finite: np.ndarray) -> np.ndarray:
@@ -472,7 +472,7 @@ def normalise_log(log_weights: np.ndarray) -> np.ndarray:
         raise ValueError("no hypothesis has a positive weight")
     p = np.exp(w - logsumexp(w))
     p = np.clip(p, 0.0, None)
-    return p / p.sum()
+    return np.asarray(p / p.sum())
 
 
 def posterior(log_prior: np.ndarray, model: EvidenceModel,

@@ -135,7 +135,7 @@ def ambiguity_groups(table: PredictionTable, separation: float = DEFAULT_SEPARAT
     """The groups no test tells apart, each hypothesis's direct partners, and the tests that separate nothing."""
     ids = [h.id for h in table.hypotheses]
     sep = separation_matrix(table)
-    told = (sep >= separation).any(axis=0) if sep.size else np.zeros((len(ids), len(ids)), dtype=bool)
+    told = np.asarray((sep >= separation).any(axis=0) if sep.size else np.zeros((len(ids), len(ids)), dtype=bool))
     partners = {ids[a]: tuple(ids[b] for b in range(len(ids)) if b != a and not told[a, b])
                 for a in range(len(ids))}
     groups = tuple(tuple(ids[h] for h in g) for g in engine_groups(evidence_model(table), separation))

@@ -161,7 +161,7 @@ def _complaint_log_prior(loaded: LoadedRuleset, table: PredictionTable, context:
                          warnings: list[str]) -> np.ndarray:
     priors = np.array([h.prior for h in table.hypotheses], dtype=float)
     with np.errstate(divide="ignore"):
-        logp = np.log(np.clip(priors, 0.0, None))
+        logp: np.ndarray = np.log(np.clip(priors, 0.0, None))
     if not context.complaint:
         return logp
     found = None

@@ -30,7 +30,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Self
 
 
 class OhmtrailError(Exception):
@@ -82,7 +82,7 @@ class LocatedError(OhmtrailError):
         super().__init__(str(head))
 
     @classmethod
-    def from_problems(cls, problems: Iterable[Problem]) -> LocatedError:
+    def from_problems(cls, problems: Iterable[Problem]) -> Self:
         """One error holding several problems; ``str()`` shows the first and a count."""
         found = tuple(problems)
         if not found:

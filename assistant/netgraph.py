@@ -222,8 +222,8 @@ def circuit_graph(ruleset: Ruleset, state: str | None = None) -> graphviz.Graph:
         else:
             g.node(f"comp_{comp.id}", "\n".join(label), shape="box", style="rounded")
             names = _TERMINALS.get(comp.type, ())
-            for i, node in enumerate(comp.nodes):
-                g.edge(f"comp_{comp.id}", f"node_{node}", names[i] if i < len(names) else None, **edge_style)
+            for i, terminal in enumerate(comp.nodes):
+                g.edge(f"comp_{comp.id}", f"node_{terminal}", names[i] if i < len(names) else None, **edge_style)
         if comp.type == "relay_contact":
             g.edge(f"comp_{comp.id}", f"comp_{comp.coil}", style="dotted", label="operated by")
     return g

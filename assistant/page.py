@@ -216,8 +216,8 @@ class PageMaker:
         if kind == "fuse_drop":
             return f"millivolt drop across {self._component_name(spec.fuse)} in place, read as its current"
         if kind == "observation":
-            return spec.question
-        return spec.title or spec.id
+            return str(spec.question)
+        return str(spec.title or spec.id)
 
     def _node_name(self, node_id: str) -> str:
         node = self.ruleset.nodes.get(node_id)

@@ -173,7 +173,7 @@ def choose_test(p: np.ndarray, model: EvidenceModel, candidates: Sequence[int],
 
 def total_variation(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Total-variation distance between rows of ``a`` and ``b`` (broadcast)."""
-    return 0.5 * np.abs(a - b).sum(axis=-1)
+    return np.asarray(0.5 * np.abs(a - b).sum(axis=-1))
 
 
 _FARTHEST: WeakKeyDictionary[EvidenceModel, dict[int, np.ndarray]] = WeakKeyDictionary()
@@ -197,7 +197,7 @@ def indistinguishable(model: EvidenceModel, h: int, among: Sequence[int] | np.nd
     """Those of ``among`` that no test in ``tests`` (default: all) tells apart from ``h``."""
     idx = np.asarray(among, dtype=int)
     if tests is None:
-        return idx[_farthest(model, h)[idx] < tolerance]
+        return np.asarray(idx[_farthest(model, h)[idx] < tolerance])
     same = np.ones(idx.size, dtype=bool)
     for t in tests:
         rows = model.tests[t].model
@@ -357,7 +357,7 @@ def _outcome_classes(p: np.ndarray, outcomes: TestOutcomes, ids: Sequence[str], 
                 run.append(run[-1] + 1)
         classes.append((run, float(pk[run].sum())))
         k = run[-1] + 1
-    effects = []
+    effects: list[OutcomeEffect] = []
     for run, mass in sorted(classes, key=lambda c: -c[1]):
         if mass < 0.005 or len(effects) >= limit:
             continue

@@ -332,13 +332,14 @@ def _store(key: str, table: PredictionTable) -> None:
         "tests": [dataclasses.asdict(t) for t in table.tests],
         "observations": sorted(table.observations),
     }
-    arrays = {f"obs_{t}": rows for t, rows in table.observations.items()}
+    arrays: dict[str, Any] = {"meta": np.array(json.dumps(meta)), "samples": table.samples, "sigma": table.sigma,
+                              "resolution": table.resolution}
+    arrays.update({f"obs_{t}": rows for t, rows in table.observations.items()})
     try:
         folder.mkdir(parents=True, exist_ok=True)
         fd, tmp = tempfile.mkstemp(dir=folder, suffix=".tmp")
         with os.fdopen(fd, "wb") as fh:
-            np.savez(fh, meta=np.array(json.dumps(meta)), samples=table.samples, sigma=table.sigma,
-                     resolution=table.resolution, **arrays)
+            np.savez(fh, **arrays)
         os.replace(tmp, folder / f"{key}.npz")
     except OSError as exc:  # a read-only cache costs speed, never the answer
         log.warning("could not cache predictions in %s: %s", folder, exc)

@@ -12,7 +12,7 @@ from __future__ import annotations
 import io
 import logging
 from collections.abc import Sequence
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 from xml.sax.saxutils import escape
 
 from reportlab.lib import colors
@@ -127,7 +127,7 @@ def _steps_table(content: ReportContent, st: dict[str, ParagraphStyle]) -> Table
             grey_rows.append(n)
         data.append([Paragraph(m, st["cell"]) for m in marked])
     table = Table(data, colWidths=[w for _, w in _STEP_COLUMNS], repeatRows=1, hAlign="LEFT")
-    style = [("VALIGN", (0, 0), (-1, -1), "TOP"),
+    style: list[Any] = [("VALIGN", (0, 0), (-1, -1), "TOP"),
              ("BACKGROUND", (0, 0), (-1, 0), colors.HexColor("#eeeeee")),
              ("LINEBELOW", (0, 0), (-1, -1), 0.25, colors.HexColor("#cccccc")),
              ("LEFTPADDING", (0, 0), (-1, -1), 2), ("RIGHTPADDING", (0, 0), (-1, -1), 2)]

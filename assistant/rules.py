@@ -280,10 +280,10 @@ def _comparison(cond: Condition) -> Any:
         field = m.num
         return {"lt": field < number, "le": field <= number, "gt": field > number, "ge": field >= number}[op]
     if op == "ne":
-        number = _number(value) if numeric_fact or not isinstance(value, str) else None
-        if number is not None and not isinstance(value, bool):
-            return m.num != _wire(number)
-        return m.text != _text(value)  # type: ignore[arg-type]
+        given = _number(value) if numeric_fact or not isinstance(value, str) else None
+        if given is not None and not isinstance(value, bool):
+            return m.num != _wire(given)
+        return m.text != _text(value)  # type: ignore[arg-type]  # check_rules allows a list only for 'in'
     return _equal(m, value, numeric_fact)
 
 

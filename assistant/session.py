@@ -23,6 +23,8 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from typing_extensions import TypeIs
+
 from assistant.errors import OhmtrailError, ReadingError, SessionError
 from assistant.export import step_digest
 from assistant.page import PageMaker, Question, verdict
@@ -367,9 +369,10 @@ class Session:
         return self._close(source, conclusion)
 
     def _close(self, source: ReadingSource, conclusion: Conclusion | None = None) -> SessionRecord:
-        conclusion = conclusion or self.diagnosis.next()
-        if _is_proposal(conclusion):  # resumed a concluded session whose engine now asks more
+        step = conclusion or self.diagnosis.next()
+        if _is_proposal(step):  # resumed a concluded session whose engine now asks more
             raise SessionError(f"session {self.id} was concluded but its diagnosis asks for more tests")
+        conclusion = step
         page = self.engine.pages.closing(conclusion, self.diagnosis)
         closing = source.close(page)
         reading: Reading | None = None
@@ -398,7 +401,8 @@ class Session:
         return self.record
 
 
-def _is_proposal(step: Any) -> bool:
+def _is_proposal(step: Proposal | Conclusion) -> TypeIs[Proposal]:
+    """A next test rather than a conclusion (by shape, so that test engines may stand in)."""
     return hasattr(step, "test_id") and hasattr(step, "gain_bits")
 
 

@@ -315,7 +315,7 @@ class Store:
                                               .where(_sessions.c.id.like(f"{escaped}%", escape="\\"))
                                               .limit(5))]
         if len(ids) == 1:
-            return ids[0]
+            return str(ids[0])
         if ids:
             raise SessionError(f"'{prefix}' could be any of: {', '.join(ids)}")
         raise SessionError(f"no session '{prefix}' in {self.where}; `ohmtrail sessions` lists them")

@@ -280,7 +280,7 @@ class RelayContactPart(_Contact):
 
     @property
     def normally_closed(self) -> bool:
-        return self.spec.normally == "closed"
+        return bool(self.spec.normally == "closed")
 
     def operated(self, ctx: StampContext) -> np.ndarray:
         closed = ctx.contact_closed.get(self.id)
@@ -388,7 +388,7 @@ class SensorPart(Part):
 
     @property
     def ratiometric(self) -> bool:
-        return self.spec.kind == "ratiometric"
+        return bool(self.spec.kind == "ratiometric")
 
     @property
     def toleranced(self) -> frozenset[str]:  # type: ignore[override]

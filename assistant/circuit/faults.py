@@ -83,7 +83,7 @@ def short_nodes(fault: Fault, part: Part, ground: str, power: str | None) -> tup
         if power is None and getattr(fault, "to", None) is None:
             raise CircuitError(f"fault '{fault.id}': the ruleset has no power node (no battery and no "
                                "'power:')", components=[part.id])
-        target = getattr(fault, "to", None) or power
+        target = str(getattr(fault, "to", None) or power)  # one of them is set: checked above
     # default: the last node, unless that is the target or the ground (a load's short to power
     # is at its feed, not from its ground terminal across the battery); any other node failing that
     candidates = [n for n in reversed(part.nodes) if n not in (target, ground)]

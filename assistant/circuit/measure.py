@@ -190,8 +190,8 @@ class CurrentMeasurement(Measurement):
         # the leads go so that the healthy current reads positive (red on the supply side)
         sign = -1.0 if expected < 0 else 1.0
         jack = choose_jack(env.meter, expected, self.test.jack)
-        scales_ = jack_scales(env.meter, jack)  # type: ignore[arg-type]
-        accuracy = current_accuracy(env.meter, jack)  # type: ignore[arg-type]
+        scales_ = jack_scales(env.meter, jack)
+        accuracy = current_accuracy(env.meter, jack)
         if jack == "clamp":
             return show(sign * base.current(part), scales_, accuracy)
         # auto-ranging within the jack: each range has its own shunt, so solve with each and

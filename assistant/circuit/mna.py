@@ -233,8 +233,8 @@ class _Pattern:
         branches = net.branches
         inc = np.zeros((n, len(branches)))
         cols = np.arange(len(branches))
-        np.add.at(inc, ([br.a for br in branches], cols), 1.0)
-        np.add.at(inc, ([br.b for br in branches], cols), -1.0)
+        np.add.at(inc, (np.array([br.a for br in branches], dtype=int), cols), 1.0)
+        np.add.at(inc, (np.array([br.b for br in branches], dtype=int), cols), -1.0)
         self.incidence = inc[1:]  # (n-1, E): +1 where a branch leaves a node, -1 where it enters
         entries: dict[tuple[int, int], int] = {(i, i): i for i in range(self.size)}
         params: list[int] = []
@@ -389,7 +389,8 @@ def _trace(n: int, a: np.ndarray, b: np.ndarray, active: np.ndarray) -> np.ndarr
 def _island_heads(island: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """(variant, node) of the first node of every floating island."""
     nodes = np.arange(island.shape[1])
-    return np.nonzero((island == nodes[None, :]) & (nodes[None, :] > 0))
+    variant, node = np.nonzero((island == nodes[None, :]) & (nodes[None, :] > 0))
+    return variant, node
 
 
 def _check_zero_ohm_loops(net: Netlist) -> None:

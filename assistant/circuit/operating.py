@@ -142,9 +142,9 @@ def operate(
             changed = _changed(new_stalled, stalled, B)
             if not changed.any():
                 return point
-        for c, chatter in toggles.items():
+        for cid, chatter in toggles.items():
             if (chatter == CHATTER_TOGGLES).any():
-                log.debug("relay contact %s chatters in %d variants: taken as at rest", c,
+                log.debug("relay contact %s chatters in %d variants: taken as at rest", cid,
                           int((chatter == CHATTER_TOGGLES).sum()))
         pulled, blown_now, stalled, todo = new_pulled, new_blown, new_stalled, changed
     raise CircuitError(f"the circuit in state '{state}' does not settle after {MAX_ROUNDS} rounds of relays, "

@@ -127,18 +127,18 @@ def fault_list(ruleset: Ruleset) -> tuple[Fault, ...]:
                 modes[mode] = ModeDefault(comp.faults[mode].weight, "Repair or replace the part", 30.0,
                                           HIGH_RESISTANCE_OHMS if mode == "high_resistance" else
                                           SHORT_OHMS if mode.startswith("short_") else None)
-        for mode, default in modes.items():
-            spec = comp.faults.get(mode)  # type: ignore[call-overload]
+        for name, default in modes.items():
+            spec = comp.faults.get(name)  # type: ignore[call-overload]
             weight = spec.weight if spec is not None else default.weight
             if weight <= 0:
                 continue
             repair = (spec.repair if spec is not None and spec.repair else None) or comp.repair
             faults.append(
                 Fault(
-                    id=f"{comp.id}.{mode}",
+                    id=f"{comp.id}.{name}",
                     component=comp.id,
                     component_type=comp.type,
-                    mode=mode,
+                    mode=name,
                     weight=weight,
                     range_ohms=(spec.range if spec is not None and spec.range else None) or default.range_ohms,
                     at=spec.at if spec is not None else None,

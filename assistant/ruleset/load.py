@@ -25,6 +25,7 @@ from pathlib import Path
 from typing import Any, TypeVar
 
 from pydantic import BaseModel, ValidationError
+from pydantic_core import ErrorDetails
 from ruamel.yaml import YAML
 from ruamel.yaml.comments import CommentedMap, CommentedOrderedMap, CommentedSeq, TaggedScalar
 from ruamel.yaml.error import MarkedYAMLError, YAMLError
@@ -201,9 +202,8 @@ def parse_yaml(text: str, name: str, error: type[RulesetError] = RulesetError) -
         message = " ".join(p for p in (exc.context, exc.problem) if p) or "YAML syntax error"
         if "duplicate key" in message or type(exc).__name__ == "DuplicateKeyError":
             message = f"duplicate key: {_duplicate_key(exc)}"
-        line = mark.line + 1 if mark else None
-        col = mark.column + 1 if mark else None
-        raise error(f"YAML: {_one_line(message)}", file=name, line=line, column=col) from exc
+        raise error(f"YAML: {_one_line(message)}", file=name, line=mark.line + 1 if mark else None,
+                    column=mark.column + 1 if mark else None) from exc
     except YAMLError as exc:
         raise error(f"YAML: {_one_line(str(exc))}", file=name, line=1, column=1) from exc
     except RecursionError as exc:
@@ -359,7 +359,7 @@ def _one_line_value(message: str, limit: int = 300) -> str:
     return message
 
 
-def _message(err: dict[str, Any]) -> str:
+def _message(err: ErrorDetails) -> str:
     kind = err["type"]
     if kind == "missing":
         return "required field is missing"

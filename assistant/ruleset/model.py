@@ -20,6 +20,7 @@ from typing import Annotated, Any, Literal, Union
 
 from pydantic import BaseModel, ConfigDict, Field, WithJsonSchema, field_validator, model_validator
 
+from assistant.errors import QuantityError
 from assistant.ruleset.quantities import (
     Amperes,
     Celsius,
@@ -28,7 +29,6 @@ from assistant.ruleset.quantities import (
     Minutes,
     VOLTAGE,
     Ohms,
-    QuantityError,
     SquareMetres,
     Volts,
     Watts,

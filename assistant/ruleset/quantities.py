@@ -15,7 +15,7 @@ import math
 import re
 from dataclasses import dataclass
 from functools import lru_cache
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any, TypeAlias
 
 import pint
 from pydantic import BeforeValidator, PlainSerializer, WithJsonSchema
@@ -52,7 +52,7 @@ FRACTION = Dimension("fraction", "dimensionless")
 
 
 @lru_cache(maxsize=1)
-def registry() -> pint.UnitRegistry:
+def registry() -> pint.UnitRegistry[Any]:
     """The one unit registry of the process (pint registries are costly to build)."""
     return pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
 
@@ -69,7 +69,7 @@ def awg_area_m2(gauge: str) -> float:
         n = 1 - len(g)
     else:
         n = int(g)
-    d_m = 0.127e-3 * 92 ** ((36 - n) / 39)
+    d_m = 0.127e-3 * math.pow(92.0, (36 - n) / 39)
     return math.pi * d_m * d_m / 4
 
 
@@ -175,12 +175,23 @@ def _field_type(dim: Dimension, description: str) -> Any:
     ]
 
 
-Volts = _field_type(VOLTAGE, "voltage")
-Ohms = _field_type(RESISTANCE, "resistance")
-Amperes = _field_type(CURRENT, "current")
-Watts = _field_type(POWER, "power")
-Metres = _field_type(LENGTH, "length")
-SquareMetres = _field_type(AREA, "conductor cross-section, or an AWG size like '18 AWG'")
-Minutes = _field_type(TIME_MINUTES, "time in minutes")
-Celsius = _field_type(TEMPERATURE, "temperature in degrees Celsius")
-Fraction = _field_type(FRACTION, "a fraction (0.05) or a percentage ('5 %')")
+if TYPE_CHECKING:  # to the type checker each is the float it holds once validated
+    Volts: TypeAlias = float
+    Ohms: TypeAlias = float
+    Amperes: TypeAlias = float
+    Watts: TypeAlias = float
+    Metres: TypeAlias = float
+    SquareMetres: TypeAlias = float
+    Minutes: TypeAlias = float
+    Celsius: TypeAlias = float
+    Fraction: TypeAlias = float
+else:
+    Volts = _field_type(VOLTAGE, "voltage")
+    Ohms = _field_type(RESISTANCE, "resistance")
+    Amperes = _field_type(CURRENT, "current")
+    Watts = _field_type(POWER, "power")
+    Metres = _field_type(LENGTH, "length")
+    SquareMetres = _field_type(AREA, "conductor cross-section, or an AWG size like '18 AWG'")
+    Minutes = _field_type(TIME_MINUTES, "time in minutes")
+    Celsius = _field_type(TEMPERATURE, "temperature in degrees Celsius")
+    Fraction = _field_type(FRACTION, "a fraction (0.05) or a percentage ('5 %')")
