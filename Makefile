@@ -22,6 +22,7 @@ tools:
 # 127.0.0.1 (installing Debian's postgresql when missing) and prints its URL. Without one they
 # skip locally and fail under CI=true. pytest's exit 5 (no tests collected) is not a failure.
 test: $(STAMP) tools
+	$(BIN)/python -m mypy assistant
 	$(BIN)/ohmtrail check rulesets/
 	@url="$${OHMTRAIL_TEST_PG_URL:-$$(sh tools/ensure-postgres.sh)}"; \
 	OHMTRAIL_TEST_PG_URL="$$url" $(BIN)/python -m pytest; rc=$$?; \
