@@ -471,8 +471,10 @@ def _add_reading_source_options(p: argparse.ArgumentParser) -> None:
                        help="take the readings from a YAML or JSON file (complaint, vehicle, readings by "
                        "test id); a test the file lacks is skipped")
     group.add_argument("--simulate", metavar="FAULT_ID",
-                       help="let the circuit model answer as the meter would with this fault (or 'none')")
-    p.add_argument("--seed", type=int, default=0, metavar="S", help="random seed of --simulate (default 0)")
+                       help="let the circuit model answer as the meter would with this fault (or 'none'), "
+                       "on a vehicle from a second Monte Carlo run, not the samples the diagnosis reasons on")
+    p.add_argument("--seed", type=int, default=0, metavar="S",
+                   help="random seed of --simulate: the vehicle and the meter's noise (default 0)")
     p.add_argument("--json", action="store_true",
                    help="print one JSON object at the end (session, diagnosis, probability, steps) instead "
                    "of the conversation")
@@ -593,7 +595,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("ruleset", metavar="RULESET")
     p.add_argument("--json", action="store_true", help="print JSON")
     p.add_argument("--runs", type=_count, default=4, metavar="N",
-                   help="simulated diagnoses per hypothesis (default 4; 0 skips the simulation)")
+                   help="simulated diagnoses per hypothesis, each on one vehicle from a second Monte Carlo "
+                   "run (default 4; 0 skips the simulation)")
     p.add_argument("--samples", type=int, default=64, metavar="N", help="prediction samples per hypothesis")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     p.add_argument("--separation", type=_fraction, default=DEFAULT_SEPARATION, metavar="F",
