@@ -194,8 +194,9 @@ class Battery(ComponentBase):
                        "[12.45 V, 12.65 V] for 75-100 %; one value is kept as a range of one",
     })]
     internal_resistance: Ohms = Field(default=0.01, gt=0)
+    # 0 to 50 % state of charge: 11.89 V to 12.24 V open-circuit in the lead-acid table (FACTS.md [S])
     discharged_emf: tuple[Volts, Volts] = Field(
-        default=(11.6, 12.2), description="EMF range of a discharged battery"
+        default=(11.9, 12.24), description="EMF range of a discharged battery (0-50 % state of charge)"
     )
 
     @field_validator("emf", mode="before")
