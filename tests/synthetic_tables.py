@@ -7,6 +7,7 @@ draw, an OL display, or an observation row, quantised like a meter display.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -103,6 +104,15 @@ def tiny_lamp() -> tuple[LoadedRuleset, PredictionTable]:
     loaded = load_ruleset(TINY_LAMP)
     table = build_table(hypotheses_of(loaded), infos_of(loaded), TINY_SPEC, default=TINY_DEFAULT)
     return loaded, table
+
+
+def all_healthy(table: PredictionTable) -> PredictionTable:
+    """The same table with every hypothesis showing what "none" shows: vehicles with no fault."""
+    none = table.hypothesis_index("none")
+    n = len(table.hypotheses)
+    return replace(table, samples=np.repeat(table.samples[none:none + 1], n, axis=0),
+                   observations={t: np.repeat(rows[none:none + 1], n, axis=0)
+                                 for t, rows in table.observations.items()})
 
 
 def random_table(n_hypotheses: int, n_tests: int, *, samples: int = 32, seed: int = 0,

@@ -3,7 +3,8 @@ holding F, for every hypothesis `ohmtrail predict` lists (``none`` included), fo
 
 Each session runs through the library as the command runs it (``Engine.build``,
 ``SimulatedSource`` on the vehicles of ``vehicle_table``, ``Session.run``, ``summary_json``) on
-one store, with seed 0, so that the whole matrix stays fast; one session per ruleset also goes through ``assistant.cli.main`` itself.
+one store, with seed 0, so that the whole matrix stays fast; one session per ruleset also goes
+through ``assistant.cli.main`` itself.
 A group conclusion must reach the threshold with the true fault inside it, and say so in the
 JSON: ``diagnosis`` (its most probable member), ``probability``, ``ambiguity_group``,
 ``group_probability``.

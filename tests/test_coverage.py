@@ -133,9 +133,11 @@ def test_each_run_is_one_vehicle_from_the_vehicles_table() -> None:
         return draw_reading(source, h, t, rng, sample=sample)
 
     h = table.hypothesis_index("fuse.blown")
+    isolation_minutes(loaded, table, h, 1, np.random.default_rng(2), spy, Context(), vehicles=vehicles)
+    assert len(seen) > 1 and {s for s, _ in seen} == {id(vehicles)}
+    assert len({sample for _, sample in seen}) == 1 and seen[0][1] is not None  # one run: one vehicle
+    seen.clear()
     isolation_minutes(loaded, table, h, 5, np.random.default_rng(2), spy, Context(), vehicles=vehicles)
-    assert seen and {s for s, _ in seen} == {id(vehicles)}
-    assert all(sample is not None for _, sample in seen)
     assert len({sample for _, sample in seen}) > 1  # five vehicles, not one
 
 
@@ -144,14 +146,10 @@ def test_coverage_scores_on_the_vehicles_it_is_given() -> None:
     from dataclasses import replace
 
     from assistant.coverage import coverage
-    from synthetic_tables import tiny_lamp
+    from synthetic_tables import all_healthy, tiny_lamp
 
     loaded, table = tiny_lamp()
-    none = table.hypothesis_index("none")
-    healthy = replace(table, samples=np.repeat(table.samples[none:none + 1], len(table.hypotheses), axis=0),
-                      observations={t: np.repeat(rows[none:none + 1], len(table.hypotheses), axis=0)
-                                    for t, rows in table.observations.items()})
-    right = {f.id: f.concluded_right for f in coverage(loaded, table, runs=3, vehicles=healthy).faults
+    right = {f.id: f.concluded_right for f in coverage(loaded, table, runs=3, vehicles=all_healthy(table)).faults
              if f.concluded_right is not None}
     assert right["none"] == 1.0 and max(r for h, r in right.items() if h != "none") == 0.0
     mismatched = replace(table, hypotheses=table.hypotheses[:-1], samples=table.samples[:-1])

@@ -11,7 +11,7 @@ import pytest
 import assistant.predict
 from assistant.cli import main
 from assistant.simulate import draw_reading, noise_free, simulate
-from synthetic_tables import TINY_LAMP, tiny_lamp
+from synthetic_tables import TINY_LAMP, all_healthy, tiny_lamp
 
 LOADED, TABLE = tiny_lamp()
 
@@ -94,11 +94,7 @@ def test_vehicles_come_from_their_own_table() -> None:
     planner names "none" and scores only on it)."""
     same = simulate(LOADED, TABLE, trials=3, seed=4, vehicles=TABLE).to_json()
     assert same == simulate(LOADED, TABLE, trials=3, seed=4).to_json()
-    none = TABLE.hypothesis_index("none")
-    healthy = replace(TABLE, samples=np.repeat(TABLE.samples[none:none + 1], len(TABLE.hypotheses), axis=0),
-                      observations={t: np.repeat(rows[none:none + 1], len(TABLE.hypotheses), axis=0)
-                                    for t, rows in TABLE.observations.items()})
-    result = simulate(LOADED, TABLE, trials=3, seed=4, vehicles=healthy)
+    result = simulate(LOADED, TABLE, trials=3, seed=4, vehicles=all_healthy(TABLE))
     right = {row["hypothesis"]: row["accuracy"] for row in result.per_hypothesis}
     assert right["none"] == 1.0
     assert max(a for h, a in right.items() if h != "none") == 0.0
