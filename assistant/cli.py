@@ -168,10 +168,11 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     optimum = result.optimal_noise_free_minutes
     print(f"{result.ruleset}: {result.hypotheses} hypotheses x {result.trials} trials, "
           f"threshold {result.threshold:g}, seed {result.seed}")
-    print(f"{'strategy':<14}{'accuracy':>10}{'tests':>8}{'minutes':>9}")
-    print(f"{'planner':<14}{result.accuracy:>10.3f}{result.mean_tests:>8.2f}{result.mean_minutes:>9.2f}")
-    for name, fig in (("linear walk", result.linear_walk), ("half-split", result.half_split)):
-        print(f"{name:<14}{fig.accuracy:>10.3f}{fig.mean_tests:>8.2f}{fig.mean_minutes:>9.2f}")
+    print(f"{'strategy':<22}{'accuracy':>10}{'tests':>8}{'minutes':>9}")
+    print(f"{'planner':<22}{result.accuracy:>10.3f}{result.mean_tests:>8.2f}{result.mean_minutes:>9.2f}")
+    for name, fig in (("linear walk", result.linear_walk), ("half-split", result.half_split),
+                      ("walk, then planner", result.linear_walk_finished)):
+        print(f"{name:<22}{fig.accuracy:>10.3f}{fig.mean_tests:>8.2f}{fig.mean_minutes:>9.2f}")
     print(f"worst planner run: {result.worst_minutes:.1f} min")
     print(f"noise-free: planner {result.planner_noise_free_minutes:.2f} min, optimum "
           + (f"{optimum:.2f} min" if optimum is not None else "not found within 60 s"))
@@ -534,8 +535,8 @@ def build_parser() -> argparse.ArgumentParser:
                        "meter noise (vehicles from a second Monte Carlo run, not the samples the "
                        "planner's evidence was built from), run the planner to its stop, and report "
                        "accuracy, tests and "
-                       "minutes (prior-weighted) beside the linear walk, half-split and the noise-free "
-                       "optimum.")
+                       "minutes (prior-weighted) beside the linear walk, half-split, the walk finished "
+                       "by the planner (to the planner's certainty) and the noise-free optimum.")
     p.add_argument("ruleset", metavar="RULESET", help="ruleset file")
     p.add_argument("--trials", type=int, default=20, metavar="N", help="runs per hypothesis (default 20)")
     p.add_argument("--seed", type=int, default=0, metavar="S", help="random seed (default 0)")

@@ -3,7 +3,9 @@
 For every hypothesis and trial a full set of readings is drawn for one simulated vehicle (a
 random Monte Carlo sample of the circuit plus the meter's error, shown at the meter's
 resolution); the planner runs on them to its stop, and the linear walk and half-split run on
-the very same draws. The vehicles come from a second Monte Carlo run of the circuit (the
+the very same draws. The walks stop short of a certain answer (the walk at its first good point,
+whatever that leaves in doubt), so the linear walk is also finished: the planner carries on from
+the walk's readings to its own stop, which gives the walk's minutes at the planner's certainty. The vehicles come from a second Monte Carlo run of the circuit (the
 ``vehicles`` table, its own seed), not from the samples the planner's evidence model was built
 from: the planner is scored on vehicles it has not seen, as it would be in a workshop. Then
 the noise-free version of the problem (each hypothesis shows its median reading, binned as the
@@ -120,6 +122,7 @@ class SimulationResult:
     worst_minutes: float
     linear_walk: Figures
     half_split: Figures
+    linear_walk_finished: Figures  # the walk, then the planner from its readings to the stop
     planner_noise_free_minutes: float
     optimal_noise_free_minutes: float | None
     ambiguity_groups: tuple[tuple[str, ...], ...]
@@ -138,6 +141,7 @@ class SimulationResult:
             "worst_minutes": self.worst_minutes,
             "linear_walk": asdict(self.linear_walk),
             "half_split": asdict(self.half_split),
+            "linear_walk_finished": asdict(self.linear_walk_finished),
             "noise_free": {"planner_mean_minutes": self.planner_noise_free_minutes,
                            "optimal_mean_minutes": self.optimal_noise_free_minutes},
             "ambiguity_groups": [list(g) for g in self.ambiguity_groups],
@@ -166,6 +170,23 @@ def run_planner(start: Diagnosis, read: Callable[[int], Reading], limit: int = 2
         tests += 1
         minutes += step.cost_minutes
     raise RuntimeError("the planner did not stop")  # pragma: no cover - every test is taken once
+
+
+def _right(table: PredictionTable, conclusion: Conclusion, h: int, group_of: dict[int, set[int]]) -> bool:
+    """Whether a conclusion names hypothesis ``h``: itself, a member of its ambiguity group, or a
+    concluded group that holds it."""
+    named = table.hypothesis_index(_named(conclusion))
+    return named == h or named in group_of.get(h, ()) or table.hypotheses[h].id in conclusion.group
+
+
+def finish(start: Diagnosis, table: PredictionTable, walk: WalkResult, draws: dict[int, Reading],
+           read: Callable[[int], Reading]) -> tuple[Conclusion, int, float]:
+    """The planner carried on from a walk's readings to its stop: (conclusion, tests, minutes)
+    after the walk's. Preparations the walk made are not paid again."""
+    d = start
+    for t in walk.tests:
+        d = d.answer(table.tests[t].id, draws[t])
+    return run_planner(d, read)
 
 
 def _walk_named(model: EvidenceModel, log_prior: np.ndarray, walk: WalkResult,
@@ -204,7 +225,7 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
     tests_used = np.zeros(len(hyps))
     minutes_used = np.zeros(len(hyps))
     undecided = np.zeros(len(hyps))
-    walk = {"linear_walk": np.zeros((3, len(hyps))), "half_split": np.zeros((3, len(hyps)))}
+    walk = {name: np.zeros((3, len(hyps))) for name in ("linear_walk", "half_split", "linear_walk_finished")}
     worst = 0.0
     live = [h for h in range(len(hyps)) if priors[h] > 0]
     total_runs, done = len(live) * trials, 0
@@ -214,8 +235,7 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
             draws = {t: draw_reading(source, h, t, rng, sample=world) for t in range(n_t)}
             read = walk_readings(draws)
             conclusion, n_tests, minutes = run_planner(start, read)
-            named = table.hypothesis_index(_named(conclusion))
-            acc[h] += named == h or named in group_of.get(h, ()) or hyps[h].id in conclusion.group
+            acc[h] += _right(table, conclusion, h, group_of)
             tests_used[h] += n_tests
             minutes_used[h] += minutes
             undecided[h] += conclusion.diagnosis is None
@@ -226,6 +246,11 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
                 walk[name][0, h] += guess == h or guess in group_of.get(h, ())
                 walk[name][1, h] += len(result.tests)
                 walk[name][2, h] += result.minutes
+                if name == "linear_walk":
+                    finished, more_tests, more_minutes = finish(start, table, result, draws, read)
+                    walk["linear_walk_finished"][:, h] += (_right(table, finished, h, group_of),
+                                                           len(result.tests) + more_tests,
+                                                           result.minutes + more_minutes)
             done += 1
             if progress is not None:
                 progress(done, total_runs)
@@ -244,6 +269,7 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
         worst_minutes=worst,
         linear_walk=Figures(*(weighted(walk["linear_walk"][i]) for i in range(3))),
         half_split=Figures(*(weighted(walk["half_split"][i]) for i in range(3))),
+        linear_walk_finished=Figures(*(weighted(walk["linear_walk_finished"][i]) for i in range(3))),
         planner_noise_free_minutes=nf_planner, optimal_noise_free_minutes=nf_optimum,
         ambiguity_groups=tuple(tuple(hyps[h].id for h in g) for g in groups),
         undecided=weighted(undecided), per_hypothesis=per,

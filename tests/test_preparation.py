@@ -24,7 +24,7 @@ from assistant.predict import PredictionTable, predict
 from assistant.reading import Reading
 from assistant.preparation import made_by, pending, sequence_minutes
 from assistant.ruleset import lint_ruleset, load_ruleset
-from assistant.simulate import draw_reading
+from assistant.simulate import draw_reading, finish
 from synthetic_tables import random_table
 
 STARTER_PATH = Path(__file__).resolve().parent.parent / "rulesets" / "starter" / "starter.yaml"
@@ -86,7 +86,7 @@ def test_the_planner_takes_the_twin_whose_access_is_already_open() -> None:
 def test_every_proposal_costs_its_own_minutes_plus_the_preparations_still_to_make() -> None:
     # a simulated no-crank on an open relay coil: the planner goes to the relay and the key switch
     rng = np.random.default_rng(5)
-    h = TABLE.hypothesis_index("k8_coil.open")
+    h = TABLE.hypothesis_index("strap.high_resistance")
     state = Diagnosis.start(STARTER, TABLE, Context(), widen_to_pairs=False)
     seen_prepared = False
     for _ in range(len(TABLE.tests)):
@@ -115,6 +115,30 @@ def test_the_walks_pay_each_preparation_once() -> None:
     needed = {ref for spec in walked for ref in spec.prepare}
     assert "crank_setup" in needed
     assert walk.minutes == pytest.approx(sum(spec.cost for spec in walked) + sum(PREP[ref] for ref in needed))
+
+
+def test_a_finished_walk_pays_no_preparation_twice() -> None:
+    # a corroded ground strap: the walk reads the clutch-switch input while cranking (good, the
+    # control circuit is sound) and stops there, with the cranking set-up made; the planner then
+    # carries on with the drops, which are made while cranking too, and must not pay for it again
+    start = Diagnosis.start(STARTER, TABLE, Context(), widen_to_pairs=False)
+    rng = np.random.default_rng(3)
+    h = TABLE.hypothesis_index("strap.high_resistance")
+    draws = {t: draw_reading(TABLE, h, t, rng, sample=0) for t in range(len(TABLE.tests))}
+    walk = linear_walk(TABLE, voltage_path(STARTER.ruleset, TABLE), lambda t: draws[t])
+    walk_made = made_by(TABLE, walk.tests)
+    assert "crank_setup" in walk_made
+    asked: list[int] = []
+
+    def read(t: int) -> Reading:
+        asked.append(t)
+        return draws[t]
+
+    conclusion, n_tests, minutes = finish(start, TABLE, walk, draws, read)
+    assert n_tests == len(asked) >= 1
+    assert any(set(r for r, _ in TABLE.tests[t].prepare) & walk_made for t in asked)
+    assert walk.minutes + minutes == pytest.approx(sequence_minutes(TABLE, [*walk.tests, *asked]))
+    assert conclusion.diagnosis == "strap.high_resistance"
 
 
 def test_the_optimum_pays_each_preparation_once() -> None:

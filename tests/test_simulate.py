@@ -10,7 +10,10 @@ import pytest
 
 import assistant.predict
 from assistant.cli import main
-from assistant.simulate import draw_reading, noise_free, simulate
+from assistant.baselines import WalkResult, linear_walk, voltage_path, walk_readings
+from assistant.diagnosis import Context, Diagnosis
+from assistant.reading import Reading
+from assistant.simulate import draw_reading, finish, noise_free, run_planner, simulate
 from synthetic_tables import TINY_LAMP, all_healthy, tiny_lamp
 
 LOADED, TABLE = tiny_lamp()
@@ -45,8 +48,12 @@ def test_simulation_figures_and_shape() -> None:
     result = simulate(LOADED, TABLE, trials=6, seed=2)
     data = result.to_json()
     assert REQUIRED <= set(data)
-    for key in ("linear_walk", "half_split"):
+    for key in ("linear_walk", "half_split", "linear_walk_finished"):
         assert set(data[key]) == {"accuracy", "mean_tests", "mean_minutes"}
+    # the finished walk is the walk and then more: it reaches the planner's stop
+    walk, finished = data["linear_walk"], data["linear_walk_finished"]
+    assert finished["mean_tests"] >= walk["mean_tests"] and finished["mean_minutes"] >= walk["mean_minutes"]
+    assert finished["accuracy"] >= 0.9
     assert set(data["noise_free"]) == {"planner_mean_minutes", "optimal_mean_minutes"}
     assert data["hypotheses"] == len(TABLE.hypotheses) and data["trials"] == 6
     assert 0.9 <= data["accuracy"] <= 1.0
@@ -55,6 +62,30 @@ def test_simulation_figures_and_shape() -> None:
     assert data["noise_free"]["optimal_mean_minutes"] <= data["noise_free"]["planner_mean_minutes"] + 1e-9
     assert ["fuse.blown", "feed.short_to_ground"] in data["ambiguity_groups"]
     json.dumps(data)  # plain JSON
+
+
+def test_finishing_a_walk_carries_on_from_its_readings() -> None:
+    start = Diagnosis.start(LOADED, TABLE, Context(), widen_to_pairs=False)
+    rng = np.random.default_rng(8)
+    h = TABLE.hypothesis_index("lamp.filament_open")
+    draws = {t: draw_reading(TABLE, h, t, rng, sample=0) for t in range(len(TABLE.tests))}
+    asked: list[int] = []
+
+    def read(t: int) -> Reading:
+        asked.append(t)
+        return draws[t]
+
+    # nothing walked: the planner from the start, as run_planner drives it
+    alone = run_planner(start, walk_readings(draws))
+    nothing = finish(start, TABLE, WalkResult((), 0.0), draws, read)
+    assert (nothing[0].diagnosis, nothing[1], nothing[2]) == (alone[0].diagnosis, alone[1], alone[2])
+    # after a walk the planner asks for none of the walk's tests again, and concludes on the fault
+    walk = linear_walk(TABLE, voltage_path(LOADED.ruleset, TABLE), walk_readings(draws))
+    assert walk.tests
+    asked.clear()
+    conclusion, n_tests, _ = finish(start, TABLE, walk, draws, read)
+    assert n_tests == len(asked) and not set(asked) & set(walk.tests)
+    assert conclusion.diagnosis == "lamp.filament_open"
 
 
 def test_same_seed_same_figures() -> None:
