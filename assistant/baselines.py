@@ -56,32 +56,39 @@ def optimal_cost(outcomes: np.ndarray, priors: np.ndarray, costs: Sequence[float
     if not live:
         return 0.0
     deadline = time.monotonic() + time_limit
-    memo: dict[tuple[frozenset[int], frozenset[str]], float] = {}
-    columns = [out[:, t] for t in range(out.shape[1])]
+    # Sets of hypotheses are bit masks (bit h for hypothesis h): a test splits a set by ANDing it
+    # with the mask of each of its outcomes, and a set's total and largest prior are read from
+    # per-byte tables, so that a node of the search costs a few integer operations per test.
+    splits = []
+    for t in range(out.shape[1]):
+        by_outcome: dict[int, int] = {}
+        for h in live:
+            k = int(out[h, t])
+            by_outcome[k] = by_outcome.get(k, 0) | (1 << h)
+        splits.append(tuple(by_outcome.values()))
+    total_of = _byte_tables(p, sum)
+    largest_of = _byte_tables(p, max)
+    paid = [float(c[t]) for t in range(out.shape[1])]
+    memo: dict[tuple[int, frozenset[str]], float] = {}
 
-    def value(members: frozenset[int], made: frozenset[str]) -> float:
+    def value(members: int, made: frozenset[str]) -> float:
         found = memo.get((members, made))
         if found is not None:
             return found
         if time.monotonic() > deadline:
             raise _OutOfTime
-        idx = list(members)
-        weights = p[idx]
-        total = float(weights.sum())
+        total = total_of(members)
         best = 0.0
-        if weights.max() < threshold * total:
+        if largest_of(members) < threshold * total:
             best = float("inf")
-            for t, col in enumerate(columns):
-                parts: dict[int, list[int]] = {}
-                for h in idx:
-                    parts.setdefault(int(col[h]), []).append(h)
-                cost = float(c[t]) + sum(m for ref, m in needs[t] if ref not in made)
+            for t, masks in enumerate(splits):
+                parts = [members & m for m in masks if members & m]
+                cost = paid[t] + sum(m for ref, m in needs[t] if ref not in made)
                 if len(parts) < 2 or cost >= best:
                     continue
                 after = made | {ref for ref, _ in needs[t]} if needs[t] else made
-                for part in parts.values():
-                    share = float(p[part].sum()) / total
-                    cost += share * value(frozenset(part), after)
+                for part in parts:
+                    cost += total_of(part) / total * value(part, after)
                     if cost >= best:
                         break
                 best = min(best, cost)
@@ -91,11 +98,31 @@ def optimal_cost(outcomes: np.ndarray, priors: np.ndarray, costs: Sequence[float
         return best
 
     try:
-        return value(frozenset(live), frozenset())
+        return value(sum(1 << h for h in live), frozenset())
     except _OutOfTime:
         return None
     except RecursionError:  # pragma: no cover - sets too deep to search
         return None
+
+
+def _byte_tables(p: np.ndarray, combine: Callable[[list[float]], float]) -> Callable[[int], float]:
+    """``combine`` (sum or max) of the priors of the hypotheses in a bit mask, from tables of
+    every byte's 256 values (0 for an empty set)."""
+    tables = []
+    for start in range(0, p.size, 8):
+        chunk = [float(x) for x in p[start:start + 8]]
+        tables.append([combine([chunk[i] for i in range(len(chunk)) if b >> i & 1] or [0.0])
+                       for b in range(256)])
+
+    seen: dict[int, float] = {}
+
+    def of(mask: int) -> float:
+        found = seen.get(mask)
+        if found is None:
+            found = seen[mask] = combine([table[(mask >> (8 * j)) & 255] for j, table in enumerate(tables)])
+        return found
+
+    return of
 
 
 def noise_free_outcomes(model: EvidenceModel) -> np.ndarray:
