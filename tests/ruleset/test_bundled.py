@@ -6,6 +6,7 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from assistant.cautions import HIGH_VOLTAGE, MAKER_FIRST, cautions_for
@@ -111,3 +112,72 @@ def test_docs_table_matches_the_rulesets() -> None:
         rs = load_ruleset(path).ruleset
         actual[_id(path)] = (rs.family, len(fault_list(rs)), len(rs.tests), len(rs.cases))
     assert rows == actual
+
+
+@pytest.mark.slow
+def test_headlamp_looks_for_lamps_lit_agree_with_the_circuit(tmp_path: Path,
+                                                             monkeypatch: pytest.MonkeyPatch) -> None:
+    """The looks for headlamps lit that should be dark are hand-written answer rows; the circuit
+    model says on its own which faults light them: a relay output live with the lights off (the
+    dip stalk resting at low beam), or the other beam's relay coil fed. Both must name the same
+    faults (a welded relay contact lights its beam in every switch position; a light switch
+    stuck on lights the low beams with the lights off, and is not seen once they are on)."""
+    monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
+    loaded = load_ruleset(RULESETS / "lamp" / "headlamps.yaml")
+    table = predict(loaded, cache=False)
+    half = loaded.ruleset.system_voltage / 2
+
+    def live(test_id: str) -> set[str]:
+        t = table.test_index(test_id)
+        return {h.id for i, h in enumerate(table.hypotheses) if np.nanmedian(table.samples[i, t]) > half}
+
+    def answered(test_id: str, outcome: str) -> set[str]:
+        t = table.test_index(test_id)
+        k = table.tests[t].outcomes.index(outcome)
+        rows = table.observations[t]
+        return {h.id for i, h in enumerate(table.hypotheses) if int(np.argmax(rows[i])) == k}
+
+    low_when_off, high_when_off = live("v_k3_87_off"), live("v_k4_87_off")
+    assert low_when_off and high_when_off  # there are faults to compare
+    assert answered("look_lamps_off", "low_lit") == low_when_off
+    assert answered("look_lamps_off", "high_lit") == high_when_off
+    # a relay's output live with its coil dead: its contact is welded
+    k3_welded = low_when_off - live("v_k3_86_off")
+    k4_welded = high_when_off - live("v_k4_86_off")
+    assert k3_welded and k4_welded
+    assert answered("look_low_on_high", "stay_lit") == live("coil_k3_on_high") | k3_welded
+    assert answered("look_high_on_low", "lit") == live("coil_k4_on_low") | k4_welded
+
+
+@pytest.mark.slow
+def test_blower_speed_try_agrees_with_the_circuit(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """The "try every speed" answers are hand-written; the circuit model says on its own which
+    speeds carry motor current under each fault: speed 4 and speed 1 by their currents, speeds 3
+    and 2 by the pack tap of their path sitting between ground and battery voltage (current
+    through it). The answer each fault most likely gets must name the same speeds. A seized
+    motor carries stall current on every speed and turns nothing: no air, however the current."""
+    monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
+    loaded = load_ruleset(RULESETS / "motor" / "blower.yaml")
+    table = predict(loaded, cache=False)
+    volts = loaded.ruleset.system_voltage
+    answers = {"all": {1, 2, 3, 4}, "four_no_faster": {1, 2, 3, 4}, "none": set(), "only_4": {4},
+               "only_3_4": {3, 4}, "all_but_1": {2, 3, 4}, "all_but_2": {1, 3, 4},
+               "all_but_3": {1, 2, 4}, "all_but_4": {1, 2, 3}}
+    t = table.test_index("try_speeds")
+    assert set(table.tests[t].outcomes) == set(answers)
+    rows = table.observations[t]
+    wrong = []
+    for i, hyp in enumerate(table.hypotheses):
+        def median(test_id: str) -> float:
+            return float(np.nanmedian(table.samples[i, table.test_index(test_id)]))
+        running = {speed for speed, flows in (
+            (4, median("i_motor_high") > 5.0), (1, median("i_motor_low") > 0.5),
+            (3, 1.0 < median("v_pack_in_speed3") < 0.8 * volts),
+            (2, 1.0 < median("v_t3_speed2") < 0.8 * volts)) if flows}
+        if hyp.id == "motor.seized":
+            assert running == {1, 2, 3, 4}
+            running = set()
+        said = table.tests[t].outcomes[int(np.argmax(rows[i]))]
+        if answers[said] != running:
+            wrong.append(f"{hyp.id}: answered {said}, the circuit runs speeds {sorted(running)}")
+    assert wrong == []
