@@ -113,7 +113,8 @@ def test_cli_simulate_table_and_bad_trials(monkeypatch: pytest.MonkeyPatch,
     monkeypatch.setattr(assistant.predict, "predict", lambda loaded, **kw: TABLE, raising=False)
     assert main(["simulate", str(TINY_LAMP), "--trials", "2"]) == 0
     out, _ = capsys.readouterr()
-    assert "linear walk" in out and "noise-free" in out
+    assert "linear walk" in out and "noise-free" in out and "walk, then planner" in out
+    assert "planner's minutes: " in out and "x the linear walk" in out
     assert main(["simulate", str(TINY_LAMP), "--trials", "0"]) == 1
     _, err = capsys.readouterr()
     assert err.count("\n") == 1 and "--trials" in err
