@@ -479,7 +479,7 @@ def _add_reading_source_options(p: argparse.ArgumentParser) -> None:
     group.add_argument("--simulate", metavar="FAULT_ID",
                        help="let the circuit model answer as the meter would with this fault (or 'none'), "
                        "on a vehicle from a second Monte Carlo run, not the samples the diagnosis reasons on")
-    p.add_argument("--seed", type=int, default=0, metavar="S",
+    p.add_argument("--seed", type=_count, default=0, metavar="S",
                    help="random seed of --simulate: the vehicle and the meter's noise (default 0)")
     p.add_argument("--json", action="store_true",
                    help="print one JSON object at the end (session, diagnosis, probability, steps) instead "
@@ -520,7 +520,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print JSON: ruleset, faults, tests, predictions")
     p.add_argument("--meter", metavar="FILE", help="a meter profile (default: the bundled 2000-count handheld)")
     p.add_argument("--samples", type=int, default=64, metavar="N", help="samples per hypothesis (default 64)")
-    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--seed", type=_count, default=0, help="random seed (default 0)")
     p.add_argument("--no-cache", action="store_true", help="compute afresh; neither read nor write the cache")
     add_overlay_options(p)
     p.set_defaults(handler=_cmd_predict)
@@ -544,7 +544,7 @@ def build_parser() -> argparse.ArgumentParser:
                        "by the planner (to the planner's certainty) and the noise-free optimum.")
     p.add_argument("ruleset", metavar="RULESET", help="ruleset file")
     p.add_argument("--trials", type=int, default=20, metavar="N", help="runs per hypothesis (default 20)")
-    p.add_argument("--seed", type=int, default=0, metavar="S", help="random seed (default 0)")
+    p.add_argument("--seed", type=_count, default=0, metavar="S", help="random seed (default 0)")
     p.add_argument("--threshold", type=float, default=None, metavar="P",
                    help="stop when a fault reaches P (default: the ruleset's threshold)")
     p.add_argument("--json", action="store_true", help="print the figures as JSON")
@@ -589,7 +589,7 @@ def build_parser() -> argparse.ArgumentParser:
                        "exit 1 on any failure or any ruleset that cannot be run.")
     p.add_argument("paths", nargs="*", metavar="PATH", default=["rulesets"])
     p.add_argument("--samples", type=int, default=64, metavar="N", help="prediction samples per hypothesis")
-    p.add_argument("--seed", type=int, default=0, help="random seed of the predictions (default 0)")
+    p.add_argument("--seed", type=_count, default=0, help="random seed of the predictions (default 0)")
     p.add_argument("--no-overlay", action="store_true", help="ignore the NAME.overlay.yaml beside each ruleset")
     p.set_defaults(handler=_cmd_check)
 
@@ -604,7 +604,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="simulated diagnoses per hypothesis, each on one vehicle from a second Monte Carlo "
                    "run (default 4; 0 skips the simulation)")
     p.add_argument("--samples", type=int, default=64, metavar="N", help="prediction samples per hypothesis")
-    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--seed", type=_count, default=0, help="random seed (default 0)")
     p.add_argument("--separation", type=_fraction, default=DEFAULT_SEPARATION, metavar="F",
                    help="how much of two hypotheses' predicted readings must differ for a test to tell "
                    f"them apart (default {DEFAULT_SEPARATION})")

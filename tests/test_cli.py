@@ -73,3 +73,20 @@ def test_schema_through_json_tool() -> None:
 def test_no_command_prints_help(capsys: pytest.CaptureFixture[str]) -> None:
     assert main([]) == 2
     assert "lint" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("command", [
+    ["predict", "rulesets/lamp/stop_lamps.yaml"],
+    ["simulate", "rulesets/lamp/stop_lamps.yaml"],
+    ["check", "rulesets/lamp"],
+    ["coverage", "rulesets/lamp/stop_lamps.yaml"],
+    ["diagnose", "rulesets/lamp/stop_lamps.yaml", "--simulate", "lamp_left.filament_open"],
+])
+def test_a_negative_seed_is_refused_with_a_message(command: list[str], capsys: pytest.CaptureFixture[str]) -> None:
+    """A random seed must be a whole number of 0 or more (the generator takes no negative
+    seed): the command line says so before any work, as argparse reports a bad option."""
+    with pytest.raises(SystemExit) as stop:
+        main([*command, "--seed", "-1"])
+    assert stop.value.code == 2
+    err = capsys.readouterr().err
+    assert "argument --seed: '-1' must not be negative" in err and "Traceback" not in err
