@@ -37,7 +37,7 @@ from assistant.overlay import apply_priors
 from assistant.predict import PredictionTable
 from assistant.ruleset.load import LoadedRuleset
 from assistant.ruleset.model import Ruleset
-from assistant.simulate import draw_reading, vehicles_or
+from assistant.simulate import draw_reading, reading_stream, vehicles_or
 
 log = logging.getLogger("ohmtrail.coverage")
 
@@ -150,14 +150,16 @@ DrawReading = Callable[..., Any]
 
 
 def isolation_minutes(loaded: LoadedRuleset, table: PredictionTable, hypothesis: int, runs: int,
-                      rng: np.random.Generator, draw: DrawReading | None = None,
+                      seed: int = 0, draw: DrawReading | None = None,
                       context: Context | None = None, *,
                       vehicles: PredictionTable | None = None) -> tuple[float, float, set[str]]:
     """Mean minutes to conclude under one hypothesis, the fraction concluded right, and the tests asked.
 
     Each run is one simulated vehicle: one Monte Carlo sample of ``vehicles`` (a second run of
     the circuit, :func:`assistant.simulate.vehicle_table`; None: ``table`` itself) behind all its
-    readings, ``draw(vehicles, hypothesis, test, rng, sample=...)``.
+    readings, ``draw(vehicles, hypothesis, test, rng, sample=...)``, with the random streams
+    ``ohmtrail simulate`` uses (:func:`assistant.simulate.reading_stream`): run ``r`` of a fault
+    is the vehicle of simulate's trial ``r`` for the same seed.
     """
     if draw is None:
         draw = draw_reading
@@ -167,8 +169,8 @@ def isolation_minutes(loaded: LoadedRuleset, table: PredictionTable, hypothesis:
     minutes: list[float] = []
     right = 0
     asked: set[str] = set()
-    for _ in range(runs):
-        world = int(rng.integers(source.samples.shape[2]))
+    for run in range(runs):
+        world = int(reading_stream(seed, target, run).integers(source.samples.shape[2]))
         state = Diagnosis.start(loaded, table, context or Context())
         spent = 0.0
         for _step in range(2 * len(table.tests) + 2):
@@ -177,7 +179,8 @@ def isolation_minutes(loaded: LoadedRuleset, table: PredictionTable, hypothesis:
                 right += step.diagnosis == target
                 break
             t = index[step.test_id]
-            state = state.answer(step.test_id, draw(source, hypothesis, t, rng, sample=world))
+            state = state.answer(step.test_id, draw(source, hypothesis, t, reading_stream(seed, target, run, step.test_id),
+                                                    sample=world))
             spent += step.cost_minutes  # its preparations included
             asked.add(step.test_id)
         minutes.append(spent)
@@ -205,7 +208,6 @@ def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, se
     table = apply_priors(table, rs)
     groups, partners, useless = ambiguity_groups(table, separation)
     group_of = {hid: i for i, g in enumerate(groups) for hid in g}
-    rng = np.random.default_rng(seed)
     chosen: set[str] = set()
     faults: list[FaultCoverage] = []
     for h, hyp in enumerate(table.hypotheses):
@@ -215,7 +217,7 @@ def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, se
         if runs > 0 and hyp.prior > 0:
             # the technician starts from a complaint: the first that leads to this fault
             context = Context(complaint=complaints[0]) if complaints else Context()
-            minutes, right, asked = isolation_minutes(loaded, table, h, runs, rng, draw, context,
+            minutes, right, asked = isolation_minutes(loaded, table, h, runs, seed, draw, context,
                                                       vehicles=vehicles)
             chosen |= asked
         faults.append(FaultCoverage(hyp.id, hyp.prior, group_of.get(hyp.id), partners.get(hyp.id, ()),

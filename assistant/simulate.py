@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import logging
 import math
+import zlib
 from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
 from typing import Any
@@ -66,6 +67,18 @@ def vehicles_or(table: PredictionTable, vehicles: PredictionTable | None) -> Pre
             or [t.id for t in vehicles.tests] != [t.id for t in table.tests]):
         raise ValueError("the vehicles' table must have the same hypotheses and tests as the planner's")
     return vehicles
+
+
+def reading_stream(seed: int, hypothesis_id: str, run: int, test_id: str = "") -> np.random.Generator:
+    """The random stream of one simulated draw: with no ``test_id``, which Monte Carlo sample is
+    the vehicle of run ``run`` under a hypothesis; with one, that test's reading on it.
+
+    Keyed by the ids, so that adding, dropping or reordering tests or hypotheses leaves every
+    other draw as it was (a ruleset edit changes the figures by what it changes, not by shifting
+    one shared random sequence), and a reading does not depend on when in a run it is asked for.
+    """
+    return np.random.default_rng([seed, zlib.crc32(hypothesis_id.encode("utf-8")), run,
+                                  zlib.crc32(test_id.encode("utf-8"))])
 
 
 def draw_reading(table: PredictionTable, hypothesis_index: int, test_index: int,
@@ -208,7 +221,6 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
     if trials < 1:
         raise ValueError("trials must be at least 1")
     source = vehicles_or(table, vehicles)
-    rng = np.random.default_rng(seed)
     model = evidence_model(table)
     hyps = table.hypotheses
     priors = np.array([h.prior for h in hyps], dtype=float)
@@ -230,9 +242,12 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
     live = [h for h in range(len(hyps)) if priors[h] > 0]
     total_runs, done = len(live) * trials, 0
     for h in live:
-        for _ in range(trials):
-            world = int(rng.integers(source.samples.shape[2]))  # one vehicle: one set of part values
-            draws = {t: draw_reading(source, h, t, rng, sample=world) for t in range(n_t)}
+        for trial in range(trials):
+            # one vehicle: one set of part values behind all its readings
+            world = int(reading_stream(seed, hyps[h].id, trial).integers(source.samples.shape[2]))
+            draws = {t: draw_reading(source, h, t, reading_stream(seed, hyps[h].id, trial, table.tests[t].id),
+                                     sample=world)
+                     for t in range(n_t)}
             read = walk_readings(draws)
             conclusion, n_tests, minutes = run_planner(start, read)
             acc[h] += _right(table, conclusion, h, group_of)

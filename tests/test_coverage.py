@@ -133,11 +133,11 @@ def test_each_run_is_one_vehicle_from_the_vehicles_table() -> None:
         return draw_reading(source, h, t, rng, sample=sample)
 
     h = table.hypothesis_index("fuse.blown")
-    isolation_minutes(loaded, table, h, 1, np.random.default_rng(2), spy, Context(), vehicles=vehicles)
+    isolation_minutes(loaded, table, h, 1, 2, spy, Context(), vehicles=vehicles)
     assert len(seen) > 1 and {s for s, _ in seen} == {id(vehicles)}
     assert len({sample for _, sample in seen}) == 1 and seen[0][1] is not None  # one run: one vehicle
     seen.clear()
-    isolation_minutes(loaded, table, h, 5, np.random.default_rng(2), spy, Context(), vehicles=vehicles)
+    isolation_minutes(loaded, table, h, 5, 2, spy, Context(), vehicles=vehicles)
     assert len({sample for _, sample in seen}) > 1  # five vehicles, not one
 
 

@@ -88,6 +88,25 @@ def test_finishing_a_walk_carries_on_from_its_readings() -> None:
     assert conclusion.diagnosis == "lamp.filament_open"
 
 
+def test_an_added_test_leaves_every_other_draw_as_it_was() -> None:
+    """Each draw has its own random stream, keyed by hypothesis, run and test id: a test added
+    to the ruleset (here one that tells nothing, so the planner never asks it) changes no other
+    reading of any run, and the figures stay exactly as they were."""
+    from assistant.predict import TestInfo
+
+    n_h, n_t, n_s = TABLE.samples.shape
+    pad = np.full((n_h, 1, n_s), np.nan)
+    wider = replace(TABLE, tests=(*TABLE.tests, TestInfo("look_extra", "observation", "", 1.0, None, ("yes", "no"))),
+                    samples=np.concatenate([TABLE.samples, pad], axis=1),
+                    sigma=np.concatenate([TABLE.sigma, pad], axis=1),
+                    resolution=np.concatenate([TABLE.resolution, pad], axis=1),
+                    observations={**TABLE.observations, n_t: np.full((n_h, 2), 0.5)})
+    before = simulate(LOADED, TABLE, trials=4, seed=3).to_json()
+    after = simulate(LOADED, wider, trials=4, seed=3).to_json()
+    for key in ("accuracy", "mean_tests", "mean_minutes", "linear_walk", "half_split", "linear_walk_finished"):
+        assert after[key] == before[key], key
+
+
 def test_same_seed_same_figures() -> None:
     a = simulate(LOADED, TABLE, trials=3, seed=11).to_json()
     b = simulate(LOADED, TABLE, trials=3, seed=11).to_json()
