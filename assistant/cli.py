@@ -173,9 +173,8 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     for name, fig in (("linear walk", result.linear_walk), ("half-split", result.half_split),
                       ("walk, then planner", result.linear_walk_finished)):
         print(f"{name:<22}{fig.accuracy:>10.3f}{fig.mean_tests:>8.2f}{fig.mean_minutes:>9.2f}")
-    ratios = [f"{result.mean_minutes / fig.mean_minutes:.2f} x the {name}"
-              for name, fig in (("linear walk", result.linear_walk), ("walk, then planner", result.linear_walk_finished))
-              if fig.mean_minutes > 0]
+    walks = (("linear walk", result.linear_walk), ("walk, then planner", result.linear_walk_finished))
+    ratios = [f"{result.mean_minutes / fig.mean_minutes:.2f} x the {name}" for name, fig in walks if fig.mean_minutes > 0]
     if ratios:
         print("planner's minutes: " + "; ".join(ratios))
     print(f"worst planner run: {result.worst_minutes:.1f} min")

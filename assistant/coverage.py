@@ -178,9 +178,8 @@ def isolation_minutes(loaded: LoadedRuleset, table: PredictionTable, hypothesis:
             if isinstance(step, Conclusion):
                 right += step.diagnosis == target
                 break
-            t = index[step.test_id]
-            state = state.answer(step.test_id, draw(source, hypothesis, t, reading_stream(seed, target, run, step.test_id),
-                                                    sample=world))
+            stream = reading_stream(seed, target, run, step.test_id)
+            state = state.answer(step.test_id, draw(source, hypothesis, index[step.test_id], stream, sample=world))
             spent += step.cost_minutes  # its preparations included
             asked.add(step.test_id)
         minutes.append(spent)

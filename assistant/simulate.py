@@ -5,9 +5,11 @@ random Monte Carlo sample of the circuit plus the meter's error, shown at the me
 resolution); the planner runs on them to its stop, and the linear walk and half-split run on
 the very same draws. The walks stop short of a certain answer (the walk at its first good point,
 whatever that leaves in doubt), so the linear walk is also finished: the planner carries on from
-the walk's readings to its own stop, which gives the walk's minutes at the planner's certainty. The vehicles come from a second Monte Carlo run of the circuit (the
-``vehicles`` table, its own seed), not from the samples the planner's evidence model was built
-from: the planner is scored on vehicles it has not seen, as it would be in a workshop. Then
+the walk's readings to its own stop, which gives the walk's minutes at the planner's certainty.
+The vehicles come from a second Monte Carlo run of the circuit (the ``vehicles`` table, its own
+seed), not from the samples the planner's evidence model was built from: the planner is scored
+on vehicles it has not seen, as it would be in a workshop. Each draw has a random stream of its
+own (:func:`reading_stream`). Then
 the noise-free version of the problem (each hypothesis shows its median reading, binned as the
 planner bins it) gives the planner's expected minutes and the exact optimum. Means are
 weighted by the hypotheses' priors.
@@ -231,7 +233,6 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
     start = Diagnosis.start(loaded, table, Context(), threshold, widen_to_pairs=False,
                             settings=settings, model=model)
     path = voltage_path(loaded.ruleset, table)
-    n_t = len(table.tests)
 
     acc = np.zeros(len(hyps))
     tests_used = np.zeros(len(hyps))
@@ -245,9 +246,8 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
         for trial in range(trials):
             # one vehicle: one set of part values behind all its readings
             world = int(reading_stream(seed, hyps[h].id, trial).integers(source.samples.shape[2]))
-            draws = {t: draw_reading(source, h, t, reading_stream(seed, hyps[h].id, trial, table.tests[t].id),
-                                     sample=world)
-                     for t in range(n_t)}
+            draws = {t: draw_reading(source, h, t, reading_stream(seed, hyps[h].id, trial, info.id), sample=world)
+                     for t, info in enumerate(table.tests)}
             read = walk_readings(draws)
             conclusion, n_tests, minutes = run_planner(start, read)
             acc[h] += _right(table, conclusion, h, group_of)
