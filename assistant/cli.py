@@ -178,6 +178,11 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     if ratios:
         print("planner's minutes: " + "; ".join(ratios))
     print(f"worst planner run: {result.worst_minutes:.1f} min")
+    costly = result.where_minutes_go(5)
+    if costly and result.mean_minutes > 0:
+        print("where the planner's minutes go (prior x minutes: share of the mean):")
+        for fault, prior, minutes, share in costly:
+            print(f"  {fault:<36}{prior:>6.1%} x {minutes:>5.1f} min: {share:>4.0%}")
     print(f"noise-free: planner {result.planner_noise_free_minutes:.2f} min, optimum "
           + (f"{optimum:.2f} min" if optimum is not None else "not found within 60 s"))
     for group in result.ambiguity_groups:

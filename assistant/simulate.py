@@ -144,6 +144,14 @@ class SimulationResult:
     undecided: float  # prior-weighted share of runs that stopped without a certain diagnosis
     per_hypothesis: tuple[dict[str, Any], ...] = field(default=())
 
+    def where_minutes_go(self, n: int | None = None) -> tuple[tuple[str, float, float, float], ...]:
+        """(hypothesis, prior, its mean minutes, its share of the planner's mean minutes), the
+        largest share first, ``n`` of them (None: all): the faults worth a cheaper test."""
+        rows = sorted(((row["hypothesis"], row["prior"], row["mean_minutes"],
+                        row["prior"] * row["mean_minutes"] / self.mean_minutes if self.mean_minutes > 0 else 0.0)
+                       for row in self.per_hypothesis), key=lambda row: -row[3])
+        return tuple(rows if n is None else rows[:n])
+
     def to_json(self) -> dict[str, Any]:
         """The JSON shape of the command line (issue 4), with a few more keys."""
         return {

@@ -107,6 +107,20 @@ def test_an_added_test_leaves_every_other_draw_as_it_was() -> None:
         assert after[key] == before[key], key
 
 
+def test_where_the_minutes_go_adds_up_to_the_mean() -> None:
+    """Each fault's share is its prior times its mean minutes over the planner's mean: the shares
+    of all the faults add up to one, the largest first."""
+    result = simulate(LOADED, TABLE, trials=3, seed=5)
+    rows = result.where_minutes_go()
+    assert len(rows) == len(result.per_hypothesis)
+    assert sum(share for *_, share in rows) == pytest.approx(1.0)
+    shares = [share for *_, share in rows]
+    assert shares == sorted(shares, reverse=True) and shares[0] > 0
+    fault, prior, minutes, share = rows[0]
+    assert share == pytest.approx(prior * minutes / result.mean_minutes)
+    assert result.where_minutes_go(2) == rows[:2]
+
+
 def test_same_seed_same_figures() -> None:
     a = simulate(LOADED, TABLE, trials=3, seed=11).to_json()
     b = simulate(LOADED, TABLE, trials=3, seed=11).to_json()
@@ -134,6 +148,7 @@ def test_cli_simulate_table_and_bad_trials(monkeypatch: pytest.MonkeyPatch,
     out, _ = capsys.readouterr()
     assert "linear walk" in out and "noise-free" in out and "walk, then planner" in out
     assert "planner's minutes: " in out and "x the linear walk" in out
+    assert "where the planner's minutes go" in out
     assert main(["simulate", str(TINY_LAMP), "--trials", "0"]) == 1
     _, err = capsys.readouterr()
     assert err.count("\n") == 1 and "--trials" in err
