@@ -86,7 +86,7 @@ def test_the_planner_takes_the_twin_whose_access_is_already_open() -> None:
 def test_every_proposal_costs_its_own_minutes_plus_the_preparations_still_to_make() -> None:
     # a simulated no-crank on an open relay coil: the planner goes to the relay and the key switch
     rng = np.random.default_rng(5)
-    h = TABLE.hypothesis_index("strap.high_resistance")
+    h = TABLE.hypothesis_index("k8_coil.open")
     state = Diagnosis.start(STARTER, TABLE, Context(), widen_to_pairs=False)
     seen_prepared = False
     for _ in range(len(TABLE.tests)):
