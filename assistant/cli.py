@@ -152,22 +152,25 @@ def _progress_bar(done: int, total: int) -> None:
 
 def _cmd_simulate(args: argparse.Namespace) -> int:
     from assistant import predict as predict_module
-    from assistant.simulate import simulate, vehicle_table
+    from assistant.simulate import complaint_context, simulate, vehicle_table
 
     if args.trials < 1:
         raise OhmtrailError(f"--trials must be at least 1, not {args.trials}")
     loaded = check_ruleset(load_with_overlays(args))
+    complaint_context(loaded, args.complaint)  # an unknown complaint fails before the slow part
     table = predict_module.predict(loaded, seed=args.seed)
     vehicles = vehicle_table(loaded, seed=args.seed)
     show_bar = not args.json and sys.stdout.isatty() and sys.stderr.isatty()
     result = simulate(loaded, table, trials=args.trials, seed=args.seed, threshold=args.threshold,
-                      progress=_progress_bar if show_bar else None, vehicles=vehicles)
+                      progress=_progress_bar if show_bar else None, vehicles=vehicles,
+                      complaint=args.complaint)
     if args.json:
         print(json.dumps(result.to_json(), indent=2))
         return 0
     optimum = result.optimal_noise_free_minutes
     print(f"{result.ruleset}: {result.hypotheses} hypotheses x {result.trials} trials, "
-          f"threshold {result.threshold:g}, seed {result.seed}")
+          f"threshold {result.threshold:g}, seed {result.seed}"
+          + (f", complaint {result.complaint}" if result.complaint else ""))
     print(f"{'strategy':<22}{'accuracy':>10}{'tests':>8}{'minutes':>9}")
     print(f"{'planner':<22}{result.accuracy:>10.3f}{result.mean_tests:>8.2f}{result.mean_minutes:>9.2f}")
     for name, fig in (("linear walk", result.linear_walk), ("half-split", result.half_split),
@@ -551,6 +554,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--seed", type=_count, default=0, metavar="S", help="random seed (default 0)")
     p.add_argument("--threshold", type=float, default=None, metavar="P",
                    help="stop when a fault reaches P (default: the ruleset's threshold)")
+    p.add_argument("--complaint", metavar="ID", default=None,
+                   help="the vehicles come in with this complaint (an id from the ruleset): the planner "
+                   "starts from it and the faults are weighted by their probability given it")
     p.add_argument("--json", action="store_true", help="print the figures as JSON")
     add_overlay_options(p)
     p.set_defaults(handler=_cmd_simulate)

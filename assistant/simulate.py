@@ -37,6 +37,7 @@ from assistant.baselines import (
 )
 from assistant.beliefs import EvidenceModel, build_model, format_value, posterior
 from assistant.diagnosis import Conclusion, Context, Diagnosis, evidence_model
+from assistant.errors import OhmtrailError
 from assistant.planner import PlannerSettings, ambiguity_groups
 from assistant.meter import MeterProfile
 from assistant.predict import PredictionTable, predict
@@ -143,6 +144,7 @@ class SimulationResult:
     ambiguity_groups: tuple[tuple[str, ...], ...]
     undecided: float  # prior-weighted share of runs that stopped without a certain diagnosis
     per_hypothesis: tuple[dict[str, Any], ...] = field(default=())
+    complaint: str | None = None  # the complaint the vehicles came in with (None: none given)
 
     def where_minutes_go(self, n: int | None = None) -> tuple[tuple[str, float, float, float], ...]:
         """(hypothesis, prior, its mean minutes, its share of the planner's mean minutes), the
@@ -172,6 +174,7 @@ class SimulationResult:
             "threshold": self.threshold,
             "undecided": self.undecided,
             "per_hypothesis": list(self.per_hypothesis),
+            "complaint": self.complaint,
         }
 
 
@@ -218,28 +221,46 @@ def _walk_named(model: EvidenceModel, log_prior: np.ndarray, walk: WalkResult,
     return int(np.argmax(p))
 
 
+def complaint_context(loaded: LoadedRuleset, complaint: str | None) -> Context:
+    """The context a simulation starts from: no complaint, or one of the ruleset's complaints
+    (by id). An unknown id is an :class:`~assistant.errors.OhmtrailError` naming the known ones."""
+    if complaint is None:
+        return Context()
+    known = [c.id for c in loaded.ruleset.complaints]
+    if complaint not in known:
+        raise OhmtrailError(f"{loaded.path}: no complaint '{complaint}' in ruleset '{loaded.ruleset.id}'; "
+                            + (f"its complaints: {', '.join(known)}" if known else "it has no complaints"))
+    return Context(complaint=complaint)
+
+
 def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20, seed: int = 0,
              threshold: float | None = None, settings: PlannerSettings | None = None,
              progress: Progress | None = None, optimum_seconds: float = OPTIMUM_SECONDS,
-             vehicles: PredictionTable | None = None) -> SimulationResult:
+             vehicles: PredictionTable | None = None, complaint: str | None = None) -> SimulationResult:
     """Simulate ``trials`` diagnoses per hypothesis; see the module docstring.
 
     ``vehicles``: the table the simulated vehicles are drawn from (the same hypotheses and
     tests as ``table``, another Monte Carlo seed: :data:`VEHICLE_SEED_OFFSET`); None draws them
     from ``table`` itself, which flatters the planner a little.
+
+    ``complaint``: the vehicles come in with this complaint (a complaint id of the ruleset). The
+    planner starts from it (its suspects, the rules it fires), and the faults are weighted by
+    the ruleset's own probabilities given it: the priors, with the faults it does not lead to
+    scaled by its ``others``. The walks do not read complaints; they are scored on the same
+    vehicles with the same weights.
     """
     if trials < 1:
         raise ValueError("trials must be at least 1")
+    context = complaint_context(loaded, complaint)
     source = vehicles_or(table, vehicles)
     model = evidence_model(table)
     hyps = table.hypotheses
-    priors = np.array([h.prior for h in hyps], dtype=float)
-    priors = priors / priors.sum()
+    start = Diagnosis.start(loaded, table, context, threshold, widen_to_pairs=False,
+                            settings=settings, model=model)
+    priors = start.posterior()  # the priors given the complaint and the rules it fires
     log_prior = np.log(np.clip(priors, 1e-300, None))
     groups = ambiguity_groups(model, (settings or PlannerSettings()).ambiguity_tolerance)
     group_of = {h: set(g) for g in groups for h in g}
-    start = Diagnosis.start(loaded, table, Context(), threshold, widen_to_pairs=False,
-                            settings=settings, model=model)
     path = voltage_path(loaded.ruleset, table)
 
     acc = np.zeros(len(hyps))
@@ -281,7 +302,7 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
     def weighted(values: np.ndarray) -> float:
         return float(priors @ (values / trials))
 
-    nf_planner, nf_optimum = noise_free(loaded, table, threshold, settings, optimum_seconds)
+    nf_planner, nf_optimum = noise_free(loaded, table, threshold, settings, optimum_seconds, context)
     per = tuple({"hypothesis": hyps[h].id, "prior": float(priors[h]), "accuracy": acc[h] / trials,
                  "mean_tests": tests_used[h] / trials, "mean_minutes": minutes_used[h] / trials}
                 for h in live)
@@ -295,23 +316,25 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
         linear_walk_finished=Figures(*(weighted(walk["linear_walk_finished"][i]) for i in range(3))),
         planner_noise_free_minutes=nf_planner, optimal_noise_free_minutes=nf_optimum,
         ambiguity_groups=tuple(tuple(hyps[h].id for h in g) for g in groups),
-        undecided=weighted(undecided), per_hypothesis=per,
+        undecided=weighted(undecided), per_hypothesis=per, complaint=complaint,
     )
 
 
 def noise_free(loaded: LoadedRuleset, table: PredictionTable, threshold: float | None = None,
                settings: PlannerSettings | None = None,
-               optimum_seconds: float = OPTIMUM_SECONDS) -> tuple[float, float | None]:
-    """(planner's expected minutes, optimal expected minutes) on the noise-free problem."""
+               optimum_seconds: float = OPTIMUM_SECONDS,
+               context: Context | None = None) -> tuple[float, float | None]:
+    """(planner's expected minutes, optimal expected minutes) on the noise-free problem, the
+    faults weighted by the priors given ``context`` (its complaint)."""
     nf = build_model(table, noise_free=True)
     outcomes = noise_free_outcomes(nf)
-    priors = np.array([h.prior for h in table.hypotheses], dtype=float)
-    priors = priors / priors.sum()
     base = settings or PlannerSettings()
     # the same stopping rule as the optimum: stop at the threshold or when no test splits
     exact = PlannerSettings(base.threshold, 1e-9, base.recommend_boost, base.state_change_minutes,
                             base.ambiguity_tolerance)
-    start = Diagnosis.start(loaded, table, Context(), threshold, widen_to_pairs=False, settings=exact, model=nf)
+    start = Diagnosis.start(loaded, table, context or Context(), threshold, widen_to_pairs=False,
+                            settings=exact, model=nf)
+    priors = start.posterior()
     expected = 0.0
     for h in range(len(table.hypotheses)):
         if priors[h] <= 0:

@@ -9,9 +9,11 @@ import numpy as np
 import pytest
 
 import assistant.predict
+import assistant.simulate
 from assistant.cli import main
 from assistant.baselines import WalkResult, linear_walk, voltage_path, walk_readings
 from assistant.diagnosis import Context, Diagnosis
+from assistant.errors import OhmtrailError
 from assistant.reading import Reading
 from assistant.simulate import draw_reading, finish, noise_free, run_planner, simulate
 from synthetic_tables import TINY_LAMP, all_healthy, tiny_lamp
@@ -152,6 +154,47 @@ def test_cli_simulate_table_and_bad_trials(monkeypatch: pytest.MonkeyPatch,
     assert main(["simulate", str(TINY_LAMP), "--trials", "0"]) == 1
     _, err = capsys.readouterr()
     assert err.count("\n") == 1 and "--trials" in err
+
+
+def test_a_complaint_weights_the_faults_and_the_planner_starts_from_it(monkeypatch: pytest.MonkeyPatch) -> None:
+    """With a complaint the vehicles are those that come in with it: each fault weighted by its
+    prior, the faults the complaint does not lead to by its ``others`` too (the tiny lamp's "out":
+    fuse, feed and lamp; others 0.1), and every diagnosis starts from it (its rule puts the fuse
+    look first)."""
+    firsts: list[str] = []
+    fired: list[tuple[str, ...]] = []
+    real = assistant.simulate.run_planner
+
+    def spy(start: Diagnosis, read: object, limit: int = 200) -> object:
+        if not start.answered:  # a planner run from the start, not a finished walk
+            step = start.next(explain_choice=False)
+            firsts.append(getattr(step, "test_id", "stop"))
+            fired.append(start.rules_fired)
+        return real(start, read, limit)  # type: ignore[arg-type]
+
+    monkeypatch.setattr(assistant.simulate, "run_planner", spy)
+    result = simulate(LOADED, TABLE, trials=2, seed=1, complaint="out")
+    weights = np.array([h.prior * (1.0 if h.id.split(".")[0] in {"fuse", "feed", "lamp"} else 0.1)
+                        for h in TABLE.hypotheses])
+    weights /= weights.sum()
+    got = {row["hypothesis"]: row["prior"] for row in result.per_hypothesis}
+    assert got == pytest.approx({h.id: w for h, w in zip(TABLE.hypotheses, weights) if w > 0}, rel=1e-9)
+    assert result.complaint == "out" and result.to_json()["complaint"] == "out"
+    assert firsts and set(firsts) == {"look_fuse"} and all("fuse_first" in f for f in fired)
+    # without it: the priors as they are, and no rule to put the fuse first
+    fired.clear()
+    plain = simulate(LOADED, TABLE, trials=2, seed=1)
+    priors = np.array([h.prior for h in TABLE.hypotheses]) / sum(h.prior for h in TABLE.hypotheses)
+    assert [row["prior"] for row in plain.per_hypothesis] == pytest.approx([p for p in priors if p > 0], rel=1e-9)
+    assert plain.complaint is None and fired and not any("fuse_first" in f for f in fired)
+
+
+def test_an_unknown_complaint_is_refused_before_anything_runs(capsys: pytest.CaptureFixture[str]) -> None:
+    with pytest.raises(OhmtrailError, match="no complaint 'smoke'.*its complaints: out"):
+        simulate(LOADED, TABLE, trials=1, complaint="smoke")
+    assert main(["simulate", str(TINY_LAMP), "--trials", "1", "--complaint", "smoke"]) == 1
+    _, err = capsys.readouterr()
+    assert err.count("\n") == 1 and "no complaint 'smoke'" in err and "Traceback" not in err
 
 
 def test_vehicles_come_from_their_own_table() -> None:
