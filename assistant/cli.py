@@ -186,6 +186,12 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
         print("where the planner's minutes go (prior x minutes: share of the mean):")
         for fault, prior, minutes, share in costly:
             print(f"  {fault:<36}{prior:>6.1%} x {minutes:>5.1f} min: {share:>4.0%}")
+    if result.rules_at_start:
+        print("rules fired at the start: " + ", ".join(result.rules_at_start))
+    if result.rule_tests:
+        print("tests the rules asked for (share of runs: tests, minutes a run):")
+        for asked in result.rule_tests:
+            print(f"  {asked.rule:<36}{asked.runs:>6.0%}: {asked.mean_tests:>4.2f} tests, {asked.mean_minutes:>5.2f} min")
     print(f"noise-free: planner {result.planner_noise_free_minutes:.2f} min, optimum "
           + (f"{optimum:.2f} min" if optimum is not None else "not found within 60 s"))
     for group in result.ambiguity_groups:
@@ -548,7 +554,8 @@ def build_parser() -> argparse.ArgumentParser:
                        "planner's evidence was built from), run the planner to its stop, and report "
                        "accuracy, tests and "
                        "minutes (prior-weighted) beside the linear walk, half-split, the walk finished "
-                       "by the planner (to the planner's certainty) and the noise-free optimum.")
+                       "by the planner (to the planner's certainty) and the noise-free optimum, and the "
+                       "minutes of the tests the decision rules asked for.")
     p.add_argument("ruleset", metavar="RULESET", help="ruleset file")
     p.add_argument("--trials", type=int, default=20, metavar="N", help="runs per hypothesis (default 20)")
     p.add_argument("--seed", type=_count, default=0, metavar="S", help="random seed (default 0)")

@@ -12,7 +12,9 @@ on vehicles it has not seen, as it would be in a workshop. Each draw has a rando
 own (:func:`reading_stream`). Then
 the noise-free version of the problem (each hypothesis shows its median reading, binned as the
 planner bins it) gives the planner's expected minutes and the exact optimum. Means are
-weighted by the hypotheses' priors.
+weighted by the hypotheses' priors. The tests a decision rule asked for are counted rule by
+rule (:class:`RuleTests`), so that a fleet engineer sees what a rule such as "fuses first"
+costs on the vehicles it fires for.
 """
 
 from __future__ import annotations
@@ -124,6 +126,17 @@ class Figures:
 
 
 @dataclass(frozen=True)
+class RuleTests:
+    """The tests one decision rule asked for (required first or recommended) and the planner
+    made, prior-weighted over the simulated runs: a fleet engineer's view of what a rule costs."""
+
+    rule: str
+    runs: float  # share of the runs in which it asked for at least one test that was made
+    mean_tests: float  # tests it asked for, per run
+    mean_minutes: float  # their minutes (preparations they paid included), per run
+
+
+@dataclass(frozen=True)
 class SimulationResult:
     """What ``ohmtrail simulate`` reports."""
 
@@ -145,6 +158,8 @@ class SimulationResult:
     undecided: float  # prior-weighted share of runs that stopped without a certain diagnosis
     per_hypothesis: tuple[dict[str, Any], ...] = field(default=())
     complaint: str | None = None  # the complaint the vehicles came in with (None: none given)
+    rules_at_start: tuple[str, ...] = ()  # the decision rules the start fires (the complaint's, the vehicle's)
+    rule_tests: tuple[RuleTests, ...] = ()  # what the tests the rules asked for cost, rule by rule
 
     def where_minutes_go(self, n: int | None = None) -> tuple[tuple[str, float, float, float], ...]:
         """(hypothesis, prior, its mean minutes, its share of the planner's mean minutes), the
@@ -175,6 +190,8 @@ class SimulationResult:
             "undecided": self.undecided,
             "per_hypothesis": list(self.per_hypothesis),
             "complaint": self.complaint,
+            "rules_at_start": list(self.rules_at_start),
+            "rule_tests": [asdict(r) for r in self.rule_tests],
         }
 
 
@@ -183,18 +200,32 @@ def _named(conclusion: Conclusion) -> str:
     return conclusion.diagnosis if conclusion.diagnosis is not None else conclusion.ranking[0][0]
 
 
-def run_planner(start: Diagnosis, read: Callable[[int], Reading], limit: int = 200) -> tuple[Conclusion, int, float]:
-    """Drive a diagnosis to its stop with a reading source; (conclusion, tests, minutes)."""
+@dataclass(frozen=True)
+class PlannerRun:
+    """One diagnosis driven to its stop: where it stopped, the tests and minutes it took, and the
+    minutes of the tests a decision rule asked for (required or recommended), by rule."""
+
+    conclusion: Conclusion
+    tests: int
+    minutes: float
+    by_rule: tuple[tuple[str, float], ...] = ()  # (rule id, minutes of one test it asked for), in order
+
+
+def run_planner(start: Diagnosis, read: Callable[[int], Reading], limit: int = 200) -> PlannerRun:
+    """Drive a diagnosis to its stop with a reading source."""
     d = start
     tests, minutes = 0, 0.0
+    by_rule: list[tuple[str, float]] = []
     for _ in range(limit):
         step = d.next(explain_choice=False)
         if isinstance(step, Conclusion):
-            return step, tests, minutes
+            return PlannerRun(step, tests, minutes, tuple(by_rule))
         t = d.table.test_index(step.test_id)
         d = d.answer(step.test_id, read(t))
         tests += 1
         minutes += step.cost_minutes
+        if step.why.rule is not None:
+            by_rule.append((step.why.rule, step.cost_minutes))
     raise RuntimeError("the planner did not stop")  # pragma: no cover - every test is taken once
 
 
@@ -206,8 +237,8 @@ def _right(table: PredictionTable, conclusion: Conclusion, h: int, group_of: dic
 
 
 def finish(start: Diagnosis, table: PredictionTable, walk: WalkResult, draws: dict[int, Reading],
-           read: Callable[[int], Reading]) -> tuple[Conclusion, int, float]:
-    """The planner carried on from a walk's readings to its stop: (conclusion, tests, minutes)
+           read: Callable[[int], Reading]) -> PlannerRun:
+    """The planner carried on from a walk's readings to its stop: its tests and minutes are those
     after the walk's. Preparations the walk made are not paid again."""
     d = start
     for t in walk.tests:
@@ -269,6 +300,7 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
     undecided = np.zeros(len(hyps))
     walk = {name: np.zeros((3, len(hyps))) for name in ("linear_walk", "half_split", "linear_walk_finished")}
     worst = 0.0
+    asked: dict[str, np.ndarray] = {}  # rule -> (runs it asked in, tests, minutes) per hypothesis
     live = [h for h in range(len(hyps)) if priors[h] > 0]
     total_runs, done = len(live) * trials, 0
     for h in live:
@@ -278,12 +310,16 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
             draws = {t: draw_reading(source, h, t, reading_stream(seed, hyps[h].id, trial, info.id), sample=world)
                      for t, info in enumerate(table.tests)}
             read = walk_readings(draws)
-            conclusion, n_tests, minutes = run_planner(start, read)
-            acc[h] += _right(table, conclusion, h, group_of)
-            tests_used[h] += n_tests
-            minutes_used[h] += minutes
-            undecided[h] += conclusion.diagnosis is None
-            worst = max(worst, minutes)
+            run = run_planner(start, read)
+            acc[h] += _right(table, run.conclusion, h, group_of)
+            tests_used[h] += run.tests
+            minutes_used[h] += run.minutes
+            undecided[h] += run.conclusion.diagnosis is None
+            worst = max(worst, run.minutes)
+            for rule_id in {r for r, _ in run.by_rule}:
+                asked.setdefault(rule_id, np.zeros((3, len(hyps))))[0, h] += 1
+            for rule_id, cost in run.by_rule:
+                asked[rule_id][1:, h] += (1, cost)
             for name, strategy in (("linear_walk", linear_walk), ("half_split", half_split)):
                 result = strategy(table, path, read)
                 guess = _walk_named(model, log_prior, result, draws)
@@ -291,10 +327,10 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
                 walk[name][1, h] += len(result.tests)
                 walk[name][2, h] += result.minutes
                 if name == "linear_walk":
-                    finished, more_tests, more_minutes = finish(start, table, result, draws, read)
-                    walk["linear_walk_finished"][:, h] += (_right(table, finished, h, group_of),
-                                                           len(result.tests) + more_tests,
-                                                           result.minutes + more_minutes)
+                    more = finish(start, table, result, draws, read)
+                    walk["linear_walk_finished"][:, h] += (_right(table, more.conclusion, h, group_of),
+                                                           len(result.tests) + more.tests,
+                                                           result.minutes + more.minutes)
             done += 1
             if progress is not None:
                 progress(done, total_runs)
@@ -317,6 +353,9 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
         planner_noise_free_minutes=nf_planner, optimal_noise_free_minutes=nf_optimum,
         ambiguity_groups=tuple(tuple(hyps[h].id for h in g) for g in groups),
         undecided=weighted(undecided), per_hypothesis=per, complaint=complaint,
+        rules_at_start=start.rules_fired,
+        rule_tests=tuple(RuleTests(rule_id, *(weighted(counts[i]) for i in range(3)))
+                         for rule_id, counts in sorted(asked.items())),
     )
 
 
@@ -350,8 +389,7 @@ def noise_free(loaded: LoadedRuleset, table: PredictionTable, threshold: float |
                 return Reading(o.label(k), overload=True)
             return Reading(o.label(k), value=centre)
 
-        _, _, minutes = run_planner(start, read)
-        expected += priors[h] * minutes
+        expected += priors[h] * run_planner(start, read).minutes
     costs = [t.cost_minutes for t in table.tests]
     optimum = optimal_cost(outcomes, priors, costs, start.threshold, time_limit=optimum_seconds,
                            prepare=[t.prepare for t in table.tests])

@@ -80,14 +80,16 @@ def test_finishing_a_walk_carries_on_from_its_readings() -> None:
     # nothing walked: the planner from the start, as run_planner drives it
     alone = run_planner(start, walk_readings(draws))
     nothing = finish(start, TABLE, WalkResult((), 0.0), draws, read)
-    assert (nothing[0].diagnosis, nothing[1], nothing[2]) == (alone[0].diagnosis, alone[1], alone[2])
+    assert (nothing.conclusion.diagnosis, nothing.tests, nothing.minutes) == (alone.conclusion.diagnosis,
+                                                                              alone.tests, alone.minutes)
     # after a walk the planner asks for none of the walk's tests again, and concludes on the fault
     walk = linear_walk(TABLE, voltage_path(LOADED.ruleset, TABLE), walk_readings(draws))
     assert walk.tests
     asked.clear()
-    conclusion, n_tests, _ = finish(start, TABLE, walk, draws, read)
-    assert n_tests == len(asked) and not set(asked) & set(walk.tests)
-    assert conclusion.diagnosis == "lamp.filament_open"
+    more = finish(start, TABLE, walk, draws, read)
+    assert more.tests == len(asked) and not set(asked) & set(walk.tests)
+    assert more.conclusion.diagnosis == "lamp.filament_open"
+    assert more.by_rule == ()  # no complaint, so no rule asked for a test
 
 
 def test_an_added_test_leaves_every_other_draw_as_it_was() -> None:
@@ -151,6 +153,12 @@ def test_cli_simulate_table_and_bad_trials(monkeypatch: pytest.MonkeyPatch,
     assert "linear walk" in out and "noise-free" in out and "walk, then planner" in out
     assert "planner's minutes: " in out and "x the linear walk" in out
     assert "where the planner's minutes go" in out
+    assert "rules fired at the start" not in out and "tests the rules asked for" not in out
+    # with the complaint its rule fires and asks for the fuse look in every run
+    assert main(["simulate", str(TINY_LAMP), "--trials", "2", "--complaint", "out"]) == 0
+    out, _ = capsys.readouterr()
+    assert "rules fired at the start: fuse_first" in out
+    assert any(line.split() == ["fuse_first", "100%:", "1.00", "tests,", "1.00", "min"] for line in out.splitlines())
     assert main(["simulate", str(TINY_LAMP), "--trials", "0"]) == 1
     _, err = capsys.readouterr()
     assert err.count("\n") == 1 and "--trials" in err
@@ -181,12 +189,20 @@ def test_a_complaint_weights_the_faults_and_the_planner_starts_from_it(monkeypat
     assert got == pytest.approx({h.id: w for h, w in zip(TABLE.hypotheses, weights) if w > 0}, rel=1e-9)
     assert result.complaint == "out" and result.to_json()["complaint"] == "out"
     assert firsts and set(firsts) == {"look_fuse"} and all("fuse_first" in f for f in fired)
+    # what the rule cost: its one test (the 1-minute fuse look) in every run
+    assert result.rules_at_start == ("fuse_first",)
+    [asked] = result.rule_tests
+    assert (asked.rule, asked.runs, asked.mean_tests, asked.mean_minutes) == ("fuse_first", pytest.approx(1.0),
+                                                                              pytest.approx(1.0), pytest.approx(1.0))
+    assert result.to_json()["rule_tests"] == [{"rule": "fuse_first", "runs": pytest.approx(1.0),
+                                               "mean_tests": pytest.approx(1.0), "mean_minutes": pytest.approx(1.0)}]
     # without it: the priors as they are, and no rule to put the fuse first
     fired.clear()
     plain = simulate(LOADED, TABLE, trials=2, seed=1)
     priors = np.array([h.prior for h in TABLE.hypotheses]) / sum(h.prior for h in TABLE.hypotheses)
     assert [row["prior"] for row in plain.per_hypothesis] == pytest.approx([p for p in priors if p > 0], rel=1e-9)
     assert plain.complaint is None and fired and not any("fuse_first" in f for f in fired)
+    assert plain.rules_at_start == () and plain.rule_tests == ()
 
 
 def test_an_unknown_complaint_is_refused_before_anything_runs(capsys: pytest.CaptureFixture[str]) -> None:
