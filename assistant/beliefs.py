@@ -69,6 +69,8 @@ class TestOutcomes:
     # each hypothesis' kernel bandwidth on the u scale, for the per-sample (joint) likelihood;
     # None where readings are taken one by one (observations, the noise-free model)
     bandwidth: np.ndarray | None = None
+    # an observation whose answer follows the circuit: its answers are taken sample by sample
+    follows_samples: bool = False
     log2probs: np.ndarray = field(init=False, repr=False)  # log2 of probs (-inf where 0)
     row_negentropy: np.ndarray = field(init=False, repr=False)  # sum_k P log2 P per hypothesis
 
@@ -208,17 +210,21 @@ class EvidenceModel:
         return len(self.table.hypotheses)
 
     def sample_likelihood(self, t: int, reading: Reading, widen: float = 1.0) -> np.ndarray | None:
-        """P(reading | h, sample s) of a meter test, shape (H, S), outlier floor included.
+        """P(reading | h, sample s), shape (H, S), outlier floor included.
 
         Sample ``s`` is one simulated vehicle: one set of part values and one fault magnitude.
         Its display is spread by the meter's uncertainty and the kernel bandwidth as in
         :func:`build_model`, so that the mean over the samples is the test's ``probs`` column.
-        None where the reading tells every sample of a hypothesis the same (observations, the
-        noise-free model, a value off the grid, the "elsewhere" column).
+        An observation that follows the circuit gives its answers' likelihoods sample by sample
+        (:meth:`_seen_likelihood`). None where the reading tells every sample of a hypothesis the
+        same (the other observations, the noise-free model, a value off the grid, the
+        "elsewhere" column).
         """
+        o = self.tests[t]
+        if o.follows_samples:
+            return self._seen_likelihood(t, reading)
         if not self._per_sample(t, reading):
             return None
-        o = self.tests[t]
         k = o.outcome_index(reading)
         assert k is not None and o.bandwidth is not None  # what _per_sample checked
         x = np.asarray(self.table.samples[:, t, :], dtype=float)
@@ -245,6 +251,18 @@ class EvidenceModel:
         like = (1.0 - o.outlier) * mass + floor[:, None]
         like[~known] = o.probs[~known, k][:, None]
         return like
+
+    def _seen_likelihood(self, t: int, reading: Reading) -> np.ndarray:
+        """P(answer | h, sample s) of an observation that follows the circuit: 1 - misjudged
+        where the sample shows that answer, misjudged spread over the other answers elsewhere,
+        the outlier floor mixed in as in :func:`build_model`."""
+        o = self.tests[t]
+        k = o.outcome_index(reading)
+        assert k is not None and o.test.misjudged is not None  # outcome_index raised if not an answer
+        n = o.n_outcomes
+        m = o.test.misjudged
+        shown = np.asarray(self.table.samples[:, t, :]) == k
+        return (1.0 - o.outlier) * np.where(shown, 1.0 - m, m / (n - 1)) + o.outlier / n
 
     def _per_sample(self, t: int, reading: Reading) -> bool:
         """Whether a reading tells one sample of a hypothesis from another (see sample_likelihood)."""
@@ -281,7 +299,8 @@ class EvidenceModel:
         of evidence. P(readings | h) is the mean over the hypothesis' Monte Carlo samples of the
         product of the readings' likelihoods under each sample (the particle estimate of the
         marginal likelihood: Doucet, de Freitas & Gordon, eds., "Sequential Monte Carlo Methods
-        in Practice", Springer 2001). Observations, whose answers do not depend on the part
+        in Practice", Springer 2001). Observations whose answers follow the circuit (``seen``)
+        are taken sample by sample too; the others, whose answers do not depend on the part
         values here, multiply in as they are.
         """
         single, joint = self.split_log_likelihood(answered)
@@ -332,7 +351,9 @@ def _observation_outcomes(table: PredictionTable, t: int, info: TestInfo, eps: f
     model = np.where(sums > 0, model / np.where(sums > 0, sums, 1.0), 1.0 / k)
     if noise_free:
         model = np.eye(k)[np.argmax(model, axis=1)]
-    return TestOutcomes(t, info, _mix(model, np.full(k, 1.0 / k), eps), model, outlier=eps)
+    follows = info.misjudged is not None and not noise_free and bool(np.isfinite(table.samples[:, t, :]).all())
+    return TestOutcomes(t, info, _mix(model, np.full(k, 1.0 / k), eps), model, outlier=eps,
+                        follows_samples=follows)
 
 
 def _bandwidth(x: np.ndarray) -> float:

@@ -10,7 +10,10 @@ resolution, before the meter's random error. ``+inf`` (or ``-inf``) stands for a
 ``sigma[h, t, s]`` is the meter's standard uncertainty for that display (the accuracy bound
 divided by sqrt(3), JCGM 100:2008), ``resolution[h, t, s]`` the display step of the range in
 use. Observation tests have NaN samples; their P(outcome | hypothesis) is in
-``observations[t]``, shape (H, K) for the test's K outcomes.
+``observations[t]``, shape (H, K) for the test's K outcomes. An observation that follows the
+circuit (``seen``) has, as its samples, the index of the answer each variant shows (sigma and
+resolution 0), and its rows are those answers' shares with the misjudged chance spread over the
+others.
 
 Hypothesis 0 is always ``none`` (no fault in this circuit).
 """
@@ -66,6 +69,9 @@ class TestInfo:
     jack: str = "auto"  # current tests: the jack the ruleset asks for (auto, 10A, mA, clamp)
     prepare: tuple[tuple[str, float], ...] = ()  # the preparations it needs, with their minutes
     instrument: str = "meter"  # voltage tests: "meter", or "scan_tool" for a module's live data
+    # observations whose answer follows the circuit (``seen``): the chance of another answer
+    # than the one each sample shows; None for the others
+    misjudged: float | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -98,7 +104,7 @@ class PredictionTable:
 
 # --------------------------------------------------------------------------- computing the table
 
-ENGINE_VERSION = "1"  # bump when the table's meaning changes; the engine's own source is hashed as well
+ENGINE_VERSION = "2"  # bump when the table's meaning changes; the engine's own source is hashed as well
 log = logging.getLogger("ohmtrail.predict")
 QUANTILES = (0.05, 0.5, 0.95)
 GROUP_NODE_VARIANTS = 2e7  # variants × nodes × right-hand sides at once (160 MB); bounds memory
@@ -139,7 +145,7 @@ def test_infos(ruleset: Ruleset) -> tuple[TestInfo, ...]:
         prepare = tuple((ref, ruleset.preparations[ref].cost) for ref in test.prepare)
         if test.kind == "observation":
             infos.append(TestInfo(test.id, test.kind, "", test.cost, test.state, tuple(test.outcomes),
-                                  prepare=prepare))
+                                  prepare=prepare, misjudged=test.misjudged if test.seen is not None else None))
             continue
         m = measurement_for(test, model)
         infos.append(TestInfo(test.id, test.kind, m.unit, test.cost, m.state, (), m.points(),
@@ -182,7 +188,14 @@ def predict(
 def compute_table(loaded: LoadedRuleset, meter: MeterProfile, *, samples: int = 64, seed: int = 0,
                   pairs: Sequence[tuple[str, str]] = (), nominal: bool = False) -> PredictionTable:
     """The prediction table, computed (no cache)."""
-    from assistant.circuit.measure import Env, ResistanceMeasurement, measurement_for, observation_rows
+    from assistant.circuit.measure import (
+        Env,
+        ResistanceMeasurement,
+        SeenObservation,
+        measurement_for,
+        observation_rows,
+        seen_rows,
+    )
     from assistant.circuit.netlist import CircuitModel
     from assistant.circuit.operating import operate_states
 
@@ -190,6 +203,7 @@ def compute_table(loaded: LoadedRuleset, meter: MeterProfile, *, samples: int = 
     hyps, members = hypotheses_of(ruleset, pairs)
     model = CircuitModel(ruleset)
     meter_tests = {t.id: measurement_for(t, model) for t in ruleset.tests if t.kind != "observation"}
+    seen = {t.id: SeenObservation(t, model) for t in ruleset.tests if t.kind == "observation" and t.seen is not None}
     probes: dict[str, list[tuple[str, str]]] = {}
     for m in meter_tests.values():
         for pair in m.probes():
@@ -216,14 +230,19 @@ def compute_table(loaded: LoadedRuleset, meter: MeterProfile, *, samples: int = 
         blown = {f.id: np.logical_or.reduce([p.blown[f.id] for p in points.values()]) for f in model.fuses}
         env = Env(model, batch, meter, points, blown, slice(0, samples), ohms_probes)
         for t, test in enumerate(ruleset.tests):
+            if test.id in seen:  # the answer each variant shows, as its index; no meter error
+                out_samples[rows, t, :] = seen[test.id].answers(env).reshape(len(rows), S)
+                out_sigma[rows, t, :] = out_res[rows, t, :] = 0.0
+                continue
             if test.kind == "observation":
                 continue
             shown = meter_tests[test.id].display(env)
             out_samples[rows, t, :] = shown.samples.reshape(len(rows), S)
             out_sigma[rows, t, :] = shown.sigma.reshape(len(rows), S)
             out_res[rows, t, :] = shown.resolution.reshape(len(rows), S)
-    observations = {t: observation_rows(test, members) for t, test in enumerate(ruleset.tests)
-                    if test.kind == "observation"}
+    observations = {t: (seen_rows(out_samples[:, t, :], len(test.outcomes), test.misjudged) if test.id in seen
+                        else observation_rows(test, members))
+                    for t, test in enumerate(ruleset.tests) if test.kind == "observation"}
     log.info("predicted %d hypotheses x %d tests x %d samples for %s", H, T, S, ruleset.id)
     return PredictionTable(ruleset.id, loaded.sha256, hyps, test_infos(ruleset), out_samples, out_sigma,
                            out_res, observations)
@@ -315,7 +334,7 @@ def _load_cached(key: str, loaded: LoadedRuleset) -> PredictionTable | None:
                       for h in meta["hypotheses"]),
                 tuple(TestInfo(t["id"], t["kind"], t["unit"], t["cost_minutes"], t["state"], tuple(t["outcomes"]),
                                tuple(t["points"]), t["jack"], tuple((str(r), float(m)) for r, m in t["prepare"]),
-                               t["instrument"])
+                               t["instrument"], t["misjudged"])
                       for t in meta["tests"]),
                 data["samples"].copy(), data["sigma"].copy(), data["resolution"].copy(), observations)
     except (OSError, ValueError, KeyError, TypeError) as exc:

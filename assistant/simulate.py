@@ -93,9 +93,19 @@ def draw_reading(table: PredictionTable, hypothesis_index: int, test_index: int,
     A random Monte Carlo sample (or ``sample``: the same one for every test of one simulated
     vehicle, so that one fault magnitude shows in all its readings), plus the meter's error (uniform within its accuracy bound,
     sqrt(3) standard uncertainties either side: JCGM 100:2008), quantised to the resolution of
-    the range in use; OL for an overload. Observations are drawn from their outcome row.
+    the range in use; OL for an overload. Observations are drawn from their outcome row; one
+    that follows the circuit (``seen``) gives the answer the vehicle's sample shows, another
+    answer with its ``misjudged`` chance.
     """
     info = table.tests[test_index]
+    if info.kind == "observation" and info.misjudged is not None:
+        # the answer the vehicle's own circuit shows, misjudged now and then
+        k = len(info.outcomes)
+        s = int(rng.integers(table.samples.shape[2])) if sample is None else sample
+        shown = int(table.samples[hypothesis_index, test_index, s])
+        if rng.random() < info.misjudged:
+            shown = [j for j in range(k) if j != shown][int(rng.integers(k - 1))]
+        return Reading(info.outcomes[shown], outcome=info.outcomes[shown])
     if info.kind == "observation":
         row = table.observations.get(test_index)
         k = len(info.outcomes)

@@ -18,6 +18,7 @@ from assistant.ruleset import LoadedRuleset, fault_list, load_ruleset
 
 DATA = Path(__file__).resolve().parent / "data" / "diagnosis"
 TINY_LAMP = DATA / "tiny_lamp.yaml"
+SEEN_LAMP = DATA / "seen_lamp.yaml"
 
 UNITS = {"voltage": "V", "drop": "V", "resistance": "ohm", "current": "A", "fuse_drop": "A", "observation": ""}
 RESOLUTION = {"V": 0.01, "ohm": 0.1, "A": 0.001}
@@ -104,6 +105,15 @@ def tiny_lamp() -> tuple[LoadedRuleset, PredictionTable]:
     loaded = load_ruleset(TINY_LAMP)
     table = build_table(hypotheses_of(loaded), infos_of(loaded), TINY_SPEC, default=TINY_DEFAULT)
     return loaded, table
+
+
+def seen_lamp() -> tuple[LoadedRuleset, PredictionTable]:
+    """A one-lamp ruleset with a look that follows the circuit, and its table from the circuit
+    engine itself (not synthetic: the look's answers are the lamp's current in each sample)."""
+    from assistant.predict import predict
+
+    loaded = load_ruleset(SEEN_LAMP)
+    return loaded, predict(loaded, samples=64, seed=3, cache=False)
 
 
 def all_healthy(table: PredictionTable) -> PredictionTable:

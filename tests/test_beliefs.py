@@ -15,7 +15,7 @@ from assistant.beliefs import build_model, entropy_bits, format_value, joint_wid
 from assistant.errors import ReadingError
 from assistant.predict import PredictionTable
 from assistant.reading import Reading
-from synthetic_tables import TINY_DEFAULT, TINY_SPEC, build_table, hypotheses_of, infos_of, tiny_lamp
+from synthetic_tables import TINY_DEFAULT, TINY_SPEC, build_table, hypotheses_of, infos_of, seen_lamp, tiny_lamp
 
 LOADED, TABLE = tiny_lamp()
 MODEL = build_model(TABLE)
@@ -219,3 +219,27 @@ def test_joint_widening_follows_the_normal_reference_rule(d: int, constant: floa
     expected = constant * n ** (-1 / (d + 4)) / (1.059 * n ** -0.2)
     assert joint_widening(d, n) == pytest.approx(expected, rel=2e-3)
     assert joint_widening(1, n) == 1.0 and joint_widening(0, n) == 1.0
+
+
+def test_a_seen_answer_is_taken_sample_by_sample() -> None:
+    """A look that follows the circuit is judged per Monte Carlo sample: its per-sample
+    likelihoods average to its outcome row, and joined with a meter reading of the same
+    vehicle it counts only the samples both fit (the particle estimate: Doucet et al. 2001)."""
+    _, table = seen_lamp()
+    model = build_model(table)
+    look, volts = table.test_index("look"), table.test_index("v_l")
+    h = table.hypothesis_index("lamp.high_resistance")
+    answers = table.samples[h, look, :]
+    assert 0 < (answers == 1).sum() < answers.size  # a corroded holder: some lamps still lit, some out
+    out = Reading("out", outcome="out")
+    per_sample = model.sample_likelihood(look, out)
+    assert per_sample is not None and model.tests[look].follows_samples
+    np.testing.assert_allclose(per_sample.mean(axis=1), model.tests[look].likelihood(out), rtol=1e-9)
+    # the lamp's ground side reads its current times the ground's resistance: the largest
+    # reading among the lit samples is a vehicle whose lamp plainly lights
+    lit_samples = np.nonzero(answers == 0)[0]
+    small = lit_samples[int(np.argmax(table.samples[h, volts, lit_samples]))]
+    reading = Reading("", value=float(table.samples[h, volts, small]))
+    joint = model.log_likelihood([(look, out), (volts, reading)])[h]
+    apart = (np.log(model.tests[look].likelihood(out)) + model.log_likelihood([(volts, reading)]))[h]
+    assert joint < apart  # taken apart, "out" would count as if any vehicle could show it

@@ -16,7 +16,7 @@ from assistant.diagnosis import Context, Diagnosis
 from assistant.errors import OhmtrailError
 from assistant.reading import Reading
 from assistant.simulate import draw_reading, finish, noise_free, run_planner, simulate
-from synthetic_tables import TINY_LAMP, all_healthy, tiny_lamp
+from synthetic_tables import TINY_LAMP, all_healthy, seen_lamp, tiny_lamp
 
 LOADED, TABLE = tiny_lamp()
 
@@ -229,3 +229,19 @@ def test_vehicles_table_must_match() -> None:
     other = replace(TABLE, hypotheses=TABLE.hypotheses[:-1], samples=TABLE.samples[:-1])
     with pytest.raises(ValueError, match="same hypotheses and tests"):
         simulate(LOADED, TABLE, trials=1, vehicles=other)
+
+
+def test_a_seen_look_answers_what_the_vehicle_shows() -> None:
+    """A simulated vehicle gives the answer its own sample shows, another one now and then
+    (its misjudged chance: 5 % here)."""
+    _, table = seen_lamp()
+    look = table.test_index("look")
+    h = table.hypothesis_index("lamp.high_resistance")
+    rng = np.random.default_rng(11)
+    for s in range(table.samples.shape[2]):
+        truth = table.tests[look].outcomes[int(table.samples[h, look, s])]
+        answers = [draw_reading(table, h, look, rng, sample=s).outcome for _ in range(200)]
+        assert answers.count(truth) >= 170  # 190 expected; never below 170 at these odds
+    wrong = sum(draw_reading(table, h, look, rng, sample=0).outcome
+                != table.tests[look].outcomes[int(table.samples[h, look, 0])] for _ in range(4000))
+    assert wrong / 4000 == pytest.approx(0.05, abs=0.012)

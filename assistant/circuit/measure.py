@@ -14,7 +14,10 @@
   taken out); the jack as the test asks, or chosen from the current expected with no fault; a
   clamp above the jack. The leads are placed so the no-fault current reads positive.
 - ``observation``: no meter; the author's P(outcome) rows, picked by fault id, then component
-  id, then ``default``.
+  id, then ``default``. An observation with ``seen`` instead follows the circuit
+  (:class:`SeenObservation`): in every variant, which of its parts pass at least ``lit_above``
+  of their rated current gives the answer, so each simulated vehicle shows the answer its own
+  part values and fault magnitude give.
 """
 
 from __future__ import annotations
@@ -221,6 +224,60 @@ def measurement_for(test: Any, model: CircuitModel) -> Measurement:
         raise CircuitError(f"test '{getattr(test, 'id', '?')}' has kind '{getattr(test, 'kind', '?')}', "
                            "which no measurement model predicts")
     return cls(test, model)
+
+
+def rated_current(spec: Any, system_voltage: float) -> float | None:
+    """The current a part that lights passes at its rating: a lamp's watts over its rated
+    voltage, a load's current; None for the others. (Not a motor: a seized one draws more than
+    its running current and does not turn, so its current does not say whether it runs.)"""
+    if spec.type == "lamp":
+        return float(spec.rating) / float(spec.rated_voltage or system_voltage)
+    if spec.type == "load":
+        return float(spec.current)
+    return None
+
+
+class SeenObservation:
+    """An observation whose answer follows the circuit (``seen``): which parts are lit."""
+
+    def __init__(self, test: Any, model: CircuitModel) -> None:
+        self.test = test
+        self.model = model
+        self.state = model.state(test.state)
+        self.rated: list[float] = []
+        for part in test.seen.parts:
+            found = model.by_id.get(part)
+            rated = rated_current(found.spec, model.ruleset.system_voltage) if found is not None else None
+            if rated is None:
+                raise CircuitError(f"test '{test.id}' looks at '{part}', which is not a lamp or load of the "
+                                   "circuit (only those have a rated current to be lit against)")
+            self.rated.append(rated)
+
+    def answers(self, env: Env) -> np.ndarray:
+        """(B,) the index of the answer (in the test's outcomes) each variant shows."""
+        point = env.points[self.state]
+        seen = self.test.seen
+        share = np.stack([np.abs(point.current(part)) / rated
+                          for part, rated in zip(seen.parts, self.rated, strict=True)], axis=1)
+        # each part's level: 0 dark, then lit (or dim, full), as in seen.levels
+        level = (share >= seen.lit_above).astype(np.int64)
+        if seen.full_above is not None:
+            brightest = share.max(axis=1, keepdims=True) if seen.side_by_side else 1.0
+            level += (level > 0) & (share >= seen.full_above * brightest)
+        outcomes = list(self.test.outcomes)
+        index = np.empty(level.shape[0], dtype=float)
+        for combo in np.unique(level, axis=0):
+            answer = seen.answer_of([seen.levels[int(x)] for x in combo])
+            assert answer is not None  # the model checks every combination has an answer
+            index[(level == combo).all(axis=1)] = outcomes.index(answer)
+        return index
+
+
+def seen_rows(answers: np.ndarray, n_outcomes: int, misjudged: float) -> np.ndarray:
+    """(H, K) P(answer | hypothesis) from each variant's answer (shape (H, S)): the share of its
+    samples showing each answer, with ``misjudged`` of each spread evenly over the others."""
+    shown = np.stack([(answers == k).mean(axis=1) for k in range(n_outcomes)], axis=1)
+    return (1.0 - misjudged) * shown + misjudged * (1.0 - shown) / (n_outcomes - 1)
 
 
 def observation_rows(test: Any, hypotheses: Sequence[tuple[str, Sequence[Any]]]) -> np.ndarray:

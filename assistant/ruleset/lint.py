@@ -206,9 +206,17 @@ class _Checker:
                 if comp is None or comp.type != "fuse":
                     yield self._p(f"'{test.fuse}' is not a fuse of this ruleset", "tests", i, "fuse")
             elif isinstance(test, ObservationTest):
-                for key in test.likelihoods:
+                for key in test.likelihoods or ():
                     if key != "default":
                         yield from self._fault_ref(key, "tests", i, "likelihoods", key, components_too=True)
+                for j, ref in enumerate(test.seen.parts if test.seen is not None else ()):
+                    comp = self.components.get(ref)
+                    if comp is None:
+                        yield self._p(f"unknown component '{ref}'", "tests", i, "seen", "parts", j)
+                    elif comp.type not in ("lamp", "load"):
+                        yield self._p(f"'{ref}' is a {comp.type}: seen looks at lamps and loads, which have a "
+                                      "rated current to be lit against (a motor's current does not say whether "
+                                      "it turns)", "tests", i, "seen", "parts", j)
 
     def _complaints(self) -> Iterator[Problem]:
         for i, complaint in enumerate(self.rs.complaints):

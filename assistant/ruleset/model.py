@@ -16,6 +16,8 @@ writes only what differs.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+from itertools import product
 from typing import Annotated, Any, Literal, Union
 
 from pydantic import BaseModel, ConfigDict, Field, WithJsonSchema, field_validator, model_validator
@@ -481,20 +483,110 @@ class FuseDropTest(TestBase):
     fuse: Identifier
 
 
+Lit = Literal["lit", "dark", "dim", "full", "any"]
+
+
+class Seen(Frozen):
+    """What an observation's answer follows in the circuit: how much current ``parts`` carry.
+
+    ``parts`` are lamps or loads. A part counts as lit when it passes at least ``lit_above``
+    of its rated current (a lamp's watts over its rated voltage, a load's current) in the
+    test's state; dark below. With ``full_above``, a
+    lit part is full at or above that share and dim below it; with ``side_by_side`` that share
+    is of the current of the brightest of the parts, not of the rated current (two lamps
+    compared on a wall: one is dimmer than the other, whatever the battery gives both). ``answers`` gives, for every
+    answer of the observation, the pattern of the parts it stands for, one of ``lit``, ``dark``,
+    ``dim``, ``full`` or ``any`` per part in the order of ``parts`` (or a list of such patterns,
+    any of which gives that answer); the first answer, in the order written, whose pattern fits
+    is the one the circuit gives.
+    """
+
+    parts: tuple[Identifier, ...] = Field(min_length=1, max_length=8)
+    lit_above: float = Field(default=0.25, gt=0, lt=1, description="share of the rated current")
+    full_above: float | None = Field(default=None, gt=0, le=1.5,
+                                     description="share of the rated current from which a lit part is full, not dim")
+    side_by_side: bool = Field(default=False, description="full_above is a share of the brightest part's current")
+    answers: dict[Identifier, tuple[tuple[Lit, ...], ...]]
+
+    @field_validator("answers", mode="before")
+    @classmethod
+    def _one_pattern(cls, value: Any) -> Any:
+        """``both: [lit, lit]`` is the one pattern ``[[lit, lit]]``."""
+        if isinstance(value, dict):
+            return {k: [v] if isinstance(v, (list, tuple)) and v and all(isinstance(x, str) for x in v) else v
+                    for k, v in value.items()}
+        return value
+
+    @model_validator(mode="after")
+    def _patterns(self) -> Seen:
+        if len(set(self.parts)) != len(self.parts):
+            raise ValueError("parts must not repeat")
+        if self.full_above is not None and self.full_above <= self.lit_above and not self.side_by_side:
+            raise ValueError("full_above must be above lit_above")
+        if self.side_by_side and (self.full_above is None or self.full_above >= 1 or len(self.parts) < 2):
+            raise ValueError("side_by_side compares two parts or more, with full_above a share under 1 of the brightest")
+        for answer, patterns in self.answers.items():
+            if not patterns or any(len(p) != len(self.parts) for p in patterns):
+                raise ValueError(f"answer '{answer}' needs one of lit, dark, dim, full, any for each of the "
+                                 f"{len(self.parts)} parts {list(self.parts)}")
+            if self.full_above is None and any(x in ("dim", "full") for p in patterns for x in p):
+                raise ValueError(f"answer '{answer}' tells dim from full: give full_above, the share of the "
+                                 "rated current from which a lit part is full")
+        return self
+
+    @property
+    def levels(self) -> tuple[str, ...]:
+        """What a part can show: dark or lit; dark, dim or full with ``full_above``."""
+        return ("dark", "lit") if self.full_above is None else ("dark", "dim", "full")
+
+    def answer_of(self, shown: Sequence[str]) -> str | None:
+        """The first answer with a pattern that fits what the parts show (each a level of
+        :attr:`levels`); None if none fits."""
+        def fits(p: str, level: str) -> bool:
+            return p == "any" or p == level or (p == "lit" and level in ("dim", "full"))
+
+        for answer, patterns in self.answers.items():
+            for pattern in patterns:
+                if all(fits(p, level) for p, level in zip(pattern, shown, strict=True)):
+                    return answer
+        return None
+
+
 class ObservationTest(TestBase):
     """A question answered by looking or trying ("fuse visibly blown?").
 
-    ``likelihoods`` maps a fault id (or a component id for all its modes, or ``default``) to
-    P(outcome) for each outcome; each row must sum to 1.
+    Either ``likelihoods`` maps a fault id (or a component id for all its modes, or
+    ``default``) to P(outcome) for each outcome, each row summing to 1; or ``seen`` says which
+    parts' current the answer follows, so that every answer comes from the circuit (each
+    simulated vehicle's own), and ``misjudged`` is the chance that a technician gives another
+    answer than the one the circuit shows.
     """
 
     kind: Literal["observation"]
     question: str
     outcomes: tuple[Identifier, ...] = ("yes", "no")
-    likelihoods: dict[str, dict[str, float]]
+    likelihoods: dict[str, dict[str, float]] | None = None
+    seen: Seen | None = None
+    misjudged: float = Field(default=0.02, ge=0, lt=0.5,
+                             description="with seen: the chance of another answer than the circuit's")
 
     @model_validator(mode="after")
     def _rows(self) -> ObservationTest:
+        if (self.likelihoods is None) == (self.seen is None):
+            raise ValueError("give either likelihoods or seen (what the answer follows in the circuit), not both")
+        if self.seen is not None:
+            if set(self.seen.answers) != set(self.outcomes):
+                raise ValueError(f"seen.answers must give a pattern for every outcome {list(self.outcomes)}")
+            if len(self.outcomes) < 2:
+                raise ValueError("an observation needs at least two outcomes")
+            missing = [combo for combo in product(self.seen.levels, repeat=len(self.seen.parts))
+                       if self.seen.answer_of(combo) is None]
+            if missing:
+                shown = ", ".join(missing[0])
+                raise ValueError(f"seen.answers give no answer when the parts are ({shown}); "
+                                 "add that pattern, or 'any' where a part does not matter")
+            return self
+        assert self.likelihoods is not None
         if "default" not in self.likelihoods:
             raise ValueError("likelihoods need a 'default' row for the faults not named")
         for key, row in self.likelihoods.items():

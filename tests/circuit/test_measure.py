@@ -14,7 +14,7 @@ from assistant.errors import CircuitError
 from assistant.meter import default_meter
 from assistant.predict import PredictionTable, compute_table
 
-from conftest import build_ruleset, loaded_of
+from conftest import build_ruleset, loaded_of, nominal_volts
 
 LAMP = [
     {"id": "b", "type": "battery", "nodes": ["P", "GND"], "emf": "12.6 V"},
@@ -189,3 +189,69 @@ def test_readings_are_quantised_to_the_range_in_use() -> None:
     # sigma is the ±(0.5 % + 2 counts) bound over sqrt(3)
     expected = (0.005 * np.abs(values) + 2 * tab.resolution[:, 0, :]) / np.sqrt(3)
     assert np.allclose(tab.sigma[:, 0, :], expected)
+
+
+# --------------------------------------------------------------------------- looks that follow the circuit
+
+LOOK = {"id": "look", "kind": "observation", "question": "Does the lamp light?", "state": "on",
+        "outcomes": ["lit", "out"], "misjudged": 0.02,
+        "seen": {"parts": ["lamp"], "lit_above": 0.25, "answers": {"lit": ["lit"], "out": ["dark"]}}}
+
+
+def _lamp_share(hypothesis: str = "none") -> float:
+    """The lamp's current over its rated 21 W / 12 V = 1.75 A: the current from the drop along
+    its 2 m feed wire of 1 mm2 copper (rho 1.7241e-8 ohm m at 20 C, IEC 60028)."""
+    volts = nominal_volts(build_ruleset(LAMP, states=STATES), hypothesis, "on")
+    return (volts["S"] - volts["A"]) / (1.7241e-8 * 2.0 / 1e-6) / 1.75
+
+
+def test_a_seen_look_follows_the_lamp_current() -> None:
+    tab = table([LOOK])
+    rows, info = tab.observations[0], tab.tests[0]
+    assert info.misjudged == 0.02
+    # the answer each variant shows, as its index: lit with no fault, out with the filament or
+    # the fuse open; the rows are those answers with one glance in fifty misjudged
+    for hyp, answer in (("none", 0), ("lamp.filament_open", 1), ("f.blown", 1), ("sw.stuck_open", 1)):
+        assert shown(tab, hyp, "look") == answer, hyp
+        assert rows[tab.hypothesis_index(hyp)] == pytest.approx([0.98, 0.02] if answer == 0 else [0.02, 0.98])
+    # switched off, the same lamp is dark, but for a switch stuck closed or its wire touching power
+    off = table([{**LOOK, "state": "off"}])
+    lit_off = {off.hypotheses[h].id for h in range(len(off.hypotheses)) if off.samples[h, 0, 0] == 0}
+    assert lit_off == {"sw.stuck_closed", "w.short_to_power"}
+
+
+def test_lit_above_and_full_above_are_shares_of_the_rated_current() -> None:
+    share = _lamp_share()
+    assert share == pytest.approx(1.0, abs=0.1)  # 12.6 V less the wiring's drop on a 12 V lamp
+    levels = {"lit": ["full"], "dim": ["dim"], "out": ["dark"]}
+    for full_above, answer in ((share - 0.01, 0), (share + 0.01, 1)):
+        look = {**LOOK, "outcomes": ["lit", "dim", "out"],
+                "seen": {"parts": ["lamp"], "full_above": full_above, "answers": levels}}
+        assert shown(table([look]), "none", "look") == answer
+    # a corroded lamp holder: dark when its share is under lit_above, lit over it
+    corroded = _lamp_share("lamp.high_resistance")
+    assert corroded < 0.9
+    look = {**LOOK, "seen": {"parts": ["lamp"], "lit_above": corroded + 0.01,
+                             "answers": {"lit": ["lit"], "out": ["dark"]}}}
+    assert shown(table([look]), "lamp.high_resistance", "look") == 1
+    look["seen"]["lit_above"] = corroded - 0.01  # type: ignore[index]
+    assert shown(table([look]), "lamp.high_resistance", "look") == 0
+
+
+def test_side_by_side_judges_the_parts_against_the_brightest() -> None:
+    # the lamp and the 30 mA sleep load both pass about their rated current with no fault: even;
+    # a corroded holder leaves the lamp under 90 % of the load's share: the lamp is the dimmer
+    look = {**LOOK, "outcomes": ["even", "lamp_dimmer", "load_dimmer"],
+            "seen": {"parts": ["lamp", "sleep"], "full_above": 0.9, "side_by_side": True,
+                     "answers": {"even": [["full", "full"], ["dim", "dim"], ["dark", "dark"]],
+                                 "lamp_dimmer": [["dim", "full"], ["dark", "full"], ["dark", "dim"]],
+                                 "load_dimmer": [["full", "dim"], ["full", "dark"], ["dim", "dark"]]}}}
+    tab = table([look])
+    assert shown(tab, "none", "look") == 0
+    assert _lamp_share("lamp.high_resistance") < 0.9 * _lamp_share()
+    assert shown(tab, "lamp.high_resistance", "look") == 1
+
+
+def test_only_lamps_and_loads_are_seen() -> None:
+    with pytest.raises(CircuitError, match="'w', which is not a lamp or load"):
+        table([{**LOOK, "seen": {"parts": ["w"], "answers": {"lit": ["lit"], "out": ["dark"]}}}])
