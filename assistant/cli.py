@@ -191,7 +191,8 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
     if result.rule_tests:
         print("tests the rules asked for (share of runs: tests, minutes a run):")
         for asked in result.rule_tests:
-            print(f"  {asked.rule:<36}{asked.runs:>6.0%}: {asked.mean_tests:>4.2f} tests, {asked.mean_minutes:>5.2f} min")
+            print(f"  {asked.rule:<36}{asked.runs:>6.0%}: {asked.mean_tests:>4.2f} tests, "
+                  f"{asked.mean_minutes:>5.2f} min")
     print(f"noise-free: planner {result.planner_noise_free_minutes:.2f} min, optimum "
           + (f"{optimum:.2f} min" if optimum is not None else "not found within 60 s"))
     for group in result.ambiguity_groups:

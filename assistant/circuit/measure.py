@@ -242,7 +242,6 @@ class SeenObservation:
 
     def __init__(self, test: Any, model: CircuitModel) -> None:
         self.test = test
-        self.model = model
         self.state = model.state(test.state)
         self.rated: list[float] = []
         for part in test.seen.parts:

@@ -17,6 +17,7 @@ from assistant.errors import Problem, RulesetError
 from assistant.ruleset.defaults import DEFAULT_MODES, fault_list
 from assistant.ruleset.load import LoadedRuleset, load_ruleset, ruleset_files
 from assistant.ruleset.model import (
+    SEEN_PART_TYPES,
     CurrentTest,
     DropTest,
     FuseDropTest,
@@ -213,7 +214,7 @@ class _Checker:
                     comp = self.components.get(ref)
                     if comp is None:
                         yield self._p(f"unknown component '{ref}'", "tests", i, "seen", "parts", j)
-                    elif comp.type not in ("lamp", "load"):
+                    elif comp.type not in SEEN_PART_TYPES:
                         yield self._p(f"'{ref}' is a {comp.type}: seen looks at lamps and loads, which have a "
                                       "rated current to be lit against (a motor's current does not say whether "
                                       "it turns)", "tests", i, "seen", "parts", j)

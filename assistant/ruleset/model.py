@@ -484,18 +484,21 @@ class FuseDropTest(TestBase):
 
 
 Lit = Literal["lit", "dark", "dim", "full", "any"]
+# the component types a look can judge by their current: they have a rated current to be lit
+# against (not a motor: a seized one draws more than a running one and does not turn)
+SEEN_PART_TYPES = ("lamp", "load")
 
 
 class Seen(Frozen):
     """What an observation's answer follows in the circuit: how much current ``parts`` carry.
 
-    ``parts`` are lamps or loads. A part counts as lit when it passes at least ``lit_above``
-    of its rated current (a lamp's watts over its rated voltage, a load's current) in the
-    test's state; dark below. With ``full_above``, a
-    lit part is full at or above that share and dim below it; with ``side_by_side`` that share
-    is of the current of the brightest of the parts, not of the rated current (two lamps
-    compared on a wall: one is dimmer than the other, whatever the battery gives both). ``answers`` gives, for every
-    answer of the observation, the pattern of the parts it stands for, one of ``lit``, ``dark``,
+    ``parts`` are lamps or loads (:data:`SEEN_PART_TYPES`). A part counts as lit when it passes
+    at least ``lit_above`` of its rated current (a lamp's watts over its rated voltage, a load's
+    current) in the test's state; dark below. With ``full_above``, a lit part is full at or
+    above that share and dim below it; with ``side_by_side`` that share is of the current of the
+    brightest of the parts, not of the rated current (two lamps compared on a wall: one is
+    dimmer than the other, whatever the battery gives both). ``answers`` gives, for every answer
+    of the observation, the pattern of the parts it stands for, one of ``lit``, ``dark``,
     ``dim``, ``full`` or ``any`` per part in the order of ``parts`` (or a list of such patterns,
     any of which gives that answer); the first answer, in the order written, whose pattern fits
     is the one the circuit gives.
@@ -524,7 +527,8 @@ class Seen(Frozen):
         if self.full_above is not None and self.full_above <= self.lit_above and not self.side_by_side:
             raise ValueError("full_above must be above lit_above")
         if self.side_by_side and (self.full_above is None or self.full_above >= 1 or len(self.parts) < 2):
-            raise ValueError("side_by_side compares two parts or more, with full_above a share under 1 of the brightest")
+            raise ValueError("side_by_side compares two parts or more, with full_above a share "
+                             "under 1 of the brightest")
         for answer, patterns in self.answers.items():
             if not patterns or any(len(p) != len(self.parts) for p in patterns):
                 raise ValueError(f"answer '{answer}' needs one of lit, dark, dim, full, any for each of the "
