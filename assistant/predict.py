@@ -145,7 +145,7 @@ def test_infos(ruleset: Ruleset) -> tuple[TestInfo, ...]:
         prepare = tuple((ref, ruleset.preparations[ref].cost) for ref in test.prepare)
         if test.kind == "observation":
             infos.append(TestInfo(test.id, test.kind, "", test.cost, test.state, tuple(test.outcomes),
-                                  prepare=prepare, misjudged=test.misjudged if test.seen is not None else None))
+                                  prepare=prepare, misjudged=test.misjudged_chance if test.seen is not None else None))
             continue
         m = measurement_for(test, model)
         infos.append(TestInfo(test.id, test.kind, m.unit, test.cost, m.state, (), m.points(),
@@ -240,7 +240,7 @@ def compute_table(loaded: LoadedRuleset, meter: MeterProfile, *, samples: int = 
             out_samples[rows, t, :] = shown.samples.reshape(len(rows), S)
             out_sigma[rows, t, :] = shown.sigma.reshape(len(rows), S)
             out_res[rows, t, :] = shown.resolution.reshape(len(rows), S)
-    observations = {t: (seen_rows(out_samples[:, t, :], len(test.outcomes), test.misjudged) if test.id in seen
+    observations = {t: (seen_rows(out_samples[:, t, :], len(test.outcomes), test.misjudged_chance) if test.id in seen
                         else observation_rows(test, members))
                     for t, test in enumerate(ruleset.tests) if test.kind == "observation"}
     log.info("predicted %d hypotheses x %d tests x %d samples for %s", H, T, S, ruleset.id)

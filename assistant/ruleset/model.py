@@ -20,7 +20,7 @@ from collections.abc import Sequence
 from itertools import product
 from typing import Annotated, Any, Literal, Union
 
-from pydantic import BaseModel, ConfigDict, Field, WithJsonSchema, field_validator, model_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationInfo, WithJsonSchema, field_validator, model_validator
 
 from assistant.errors import QuantityError
 from assistant.ruleset.quantities import (
@@ -556,6 +556,9 @@ class Seen(Frozen):
         return None
 
 
+DEFAULT_MISJUDGED = 0.02  # one glance in fifty answers otherwise than the circuit: a judgement, not a measured figure
+
+
 class ObservationTest(TestBase):
     """A question answered by looking or trying ("fuse visibly blown?").
 
@@ -571,8 +574,24 @@ class ObservationTest(TestBase):
     outcomes: tuple[Identifier, ...] = ("yes", "no")
     likelihoods: dict[str, dict[str, float]] | None = None
     seen: Seen | None = None
-    misjudged: float = Field(default=0.02, ge=0, lt=0.5,
-                             description="with seen: the chance of another answer than the circuit's")
+    misjudged: float | None = Field(default=None, ge=0, lt=0.5,
+                                    description="with seen: the chance of another answer than the circuit's "
+                                                f"(default {DEFAULT_MISJUDGED})")
+
+    @field_validator("misjudged")
+    @classmethod
+    def _only_with_seen(cls, value: float | None, info: ValidationInfo) -> float | None:
+        # likelihood rows already hold the chance of a wrong answer: a misjudged beside them
+        # would be read by nothing
+        if value is not None and info.data.get("seen") is None and info.data.get("likelihoods") is not None:
+            raise ValueError("misjudged applies to a look written with seen; with likelihoods, "
+                             "put the chance of a wrong answer in the rows")
+        return value
+
+    @property
+    def misjudged_chance(self) -> float:
+        """The chance of another answer than the circuit's: ``misjudged``, else the default."""
+        return DEFAULT_MISJUDGED if self.misjudged is None else self.misjudged
 
     @model_validator(mode="after")
     def _rows(self) -> ObservationTest:

@@ -101,6 +101,19 @@ def test_bad_seen_looks_are_refused_with_the_line(tmp_path: Path, look: str, mes
     assert message in text and "pair.yaml" in text and ":" in text.split("pair.yaml", 1)[1]
 
 
+def test_misjudged_without_seen_is_refused_at_its_line(tmp_path: Path) -> None:
+    # hand-written rows already hold the chance of a wrong answer; a misjudged beside them
+    # would be read by nothing, so it is refused rather than silently dropped
+    look = """\
+    likelihoods: {default: {both: 0.97, left_only: 0.01, right_only: 0.01, neither: 0.01}}
+    misjudged: 0.05"""
+    with pytest.raises(RulesetError) as err:
+        load_ruleset(_write(tmp_path, look))
+    text = str(err.value)
+    assert "misjudged applies to a look written with seen" in text
+    assert "pair.yaml:24:16: tests.0.misjudged:" in text
+
+
 @pytest.mark.parametrize("part, message", [
     ("lamp_x", "unknown component 'lamp_x'"),
     ("f1", "'f1' is a fuse: seen looks at lamps and loads"),
