@@ -614,7 +614,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("coverage", help="what a ruleset's tests can tell apart, and at what cost",
                        description="Report, for each fault, whether any test tells it from every other "
                        "(ambiguity groups), the expected minutes to isolate it in simulated diagnoses, "
-                       "the tests that never change any decision, the faults no complaint leads to, and "
+                       "its floor (the least minutes any diagnosis must spend to name it at the "
+                       "threshold, with the tests that set it), the tests that never change any decision, the faults no complaint leads to, and "
                        "the operating states the tests need. --json gives the shape in docs/authoring.md.")
     p.add_argument("ruleset", metavar="RULESET")
     p.add_argument("--json", action="store_true", help="print JSON")

@@ -15,6 +15,9 @@ For an author deciding which tests to add or drop:
   to), and how often it concluded that very fault;
 - **tests that never change any decision**: tests that tell no two hypotheses apart, and tests
   the engine never chose in any of the simulated diagnoses (candidates to drop);
+- **the floor** of each fault: the least minutes of tests and preparations any diagnosis must
+  spend to name it at the threshold, whatever order it takes them in (``assistant.floor``), and
+  the cheapest tests that reach it: where the floor stands high, no planner can do better;
 - **faults no complaint leads to**, and **the operating states the tests need**.
 
 :func:`coverage` returns a :class:`Coverage`; :meth:`Coverage.to_json` gives the documented
@@ -31,6 +34,7 @@ from typing import Any
 import numpy as np
 
 from assistant.diagnosis import Conclusion, Context, Diagnosis, evidence_model
+from assistant.floor import Floor, floors
 from assistant.planner import AMBIGUITY_TOLERANCE, total_variation
 from assistant.planner import ambiguity_groups as engine_groups
 from assistant.overlay import apply_priors
@@ -56,6 +60,9 @@ class FaultCoverage:
     expected_minutes: float | None  # None when not simulated
     concluded_right: float | None  # fraction of simulated diagnoses that ended in this hypothesis
     complaints: tuple[str, ...]  # complaints that lead to it
+    floor_minutes: float | None = None  # least minutes to name it at the threshold (None: no prior)
+    floor_tests: tuple[str, ...] = ()  # a cheapest set of tests that can
+    floor_preparations: tuple[str, ...] = ()  # the preparations those tests need
 
 
 @dataclass(frozen=True)
@@ -86,6 +93,14 @@ class Coverage:
         total = sum(p for p, _ in known)
         return sum(p * m for p, m in known) / total if total > 0 else None
 
+    @property
+    def weighted_floor(self) -> float | None:
+        """The floors weighted by the hypotheses' priors: a lower bound on the mean minutes of
+        any diagnosis that names every fault at the threshold (None when no fault has a floor)."""
+        known = [(f.prior, f.floor_minutes) for f in self.faults if f.floor_minutes is not None]
+        total = sum(p for p, _ in known)
+        return sum(p * m for p, m in known) / total if known and total > 0 else None
+
     def to_json(self) -> dict[str, Any]:
         """The documented JSON shape (see docs/authoring.md, "coverage --json")."""
         return {
@@ -96,11 +111,14 @@ class Coverage:
             "faults": [
                 {"id": f.id, "prior": f.prior, "isolable": f.group is None, "group": f.group,
                  "confused_with": list(f.confused_with), "expected_minutes": f.expected_minutes,
-                 "concluded_right": f.concluded_right, "complaints": list(f.complaints)}
+                 "concluded_right": f.concluded_right, "complaints": list(f.complaints),
+                 "floor_minutes": f.floor_minutes, "floor_tests": list(f.floor_tests),
+                 "floor_preparations": list(f.floor_preparations)}
                 for f in self.faults
             ],
             "ambiguity_groups": [list(g) for g in self.groups],
             "weighted_expected_minutes": self.weighted_minutes,
+            "weighted_floor_minutes": self.weighted_floor,
             "tests_never_deciding": (
                 [{"id": t, "reason": "separates no two hypotheses"} for t in self.separates_nothing]
                 + [{"id": t, "reason": f"never chosen in {self.runs * len(self.faults)} simulated diagnoses"}
@@ -141,6 +159,19 @@ def ambiguity_groups(table: PredictionTable, separation: float = DEFAULT_SEPARAT
     groups = tuple(tuple(ids[h] for h in g) for g in engine_groups(evidence_model(table), separation))
     useless = tuple(table.tests[t].id for t in range(len(table.tests)) if not (sep[t] >= separation).any())
     return groups, partners, useless
+
+
+def fault_floors(table: PredictionTable, threshold: float,
+                 groups: tuple[tuple[str, ...], ...] = ()) -> tuple[Floor | None, ...]:
+    """Each hypothesis's floor (``assistant.floor``) from the engine's outcome models and the
+    table's priors; the members of one of ``groups`` may be named together."""
+    index = {h.id: i for i, h in enumerate(table.hypotheses)}
+    priors = np.array([h.prior for h in table.hypotheses], dtype=float)
+    if priors.sum() > 0:
+        priors = priors / priors.sum()
+    return floors(separation_matrix(table), priors, [t.cost_minutes for t in table.tests],
+                  [t.prepare for t in table.tests], threshold,
+                  together=[[index[h] for h in g] for g in groups])
 
 
 # --------------------------------------------------------------------------- simulation
@@ -207,6 +238,7 @@ def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, se
     table = apply_priors(table, rs)
     groups, partners, useless = ambiguity_groups(table, separation)
     group_of = {hid: i for i, g in enumerate(groups) for hid in g}
+    lowest = fault_floors(table, rs.threshold, groups)
     chosen: set[str] = set()
     faults: list[FaultCoverage] = []
     for h, hyp in enumerate(table.hypotheses):
@@ -219,8 +251,12 @@ def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, se
             minutes, right, asked = isolation_minutes(loaded, table, h, runs, seed, draw, context,
                                                       vehicles=vehicles)
             chosen |= asked
+        floor = lowest[h]
         faults.append(FaultCoverage(hyp.id, hyp.prior, group_of.get(hyp.id), partners.get(hyp.id, ()),
-                                    minutes, right, complaints))
+                                    minutes, right, complaints,
+                                    None if floor is None else floor.minutes,
+                                    () if floor is None else tuple(table.tests[t].id for t in floor.tests),
+                                    () if floor is None else floor.preparations))
     never = tuple(t.id for t in table.tests if runs > 0 and t.id not in chosen and t.id not in useless)
     without = tuple(f.id for f in faults if f.id != "none" and "+" not in f.id and not f.complaints)
     states = tuple((name, st.label, tuple(t.id for t in rs.tests if t.state == name)) for name, st in rs.states.items())
@@ -235,15 +271,26 @@ def coverage_text(report: Coverage) -> str:
              + (f", {report.runs} simulated diagnoses each" if report.runs else ", no simulation")]
     lines.extend(f"overlay: {o}" for o in report.overlays)
     width = max([len("hypothesis")] + [len(f.id) for f in report.faults])
-    lines.append(f"{'hypothesis':<{width}}  {'prior':>6}  {'group':>5}  {'E[min]':>6}  {'right':>5}  complaints")
+    lines.append(f"{'hypothesis':<{width}}  {'prior':>6}  {'group':>5}  {'E[min]':>6}  {'floor':>5}  {'right':>5}  complaints")
     for f in report.faults:
         group = "-" if f.group is None else str(f.group + 1)
         minutes = "-" if f.expected_minutes is None else f"{f.expected_minutes:.1f}"
         right = "-" if f.concluded_right is None else f"{f.concluded_right:.0%}"
+        floor = "-" if f.floor_minutes is None else f"{f.floor_minutes:.1f}"
         complaints = ", ".join(f.complaints) if f.complaints else ("-" if f.id == "none" else "NONE")
-        lines.append(f"{f.id:<{width}}  {f.prior:>6.1%}  {group:>5}  {minutes:>6}  {right:>5}  {complaints}")
+        lines.append(f"{f.id:<{width}}  {f.prior:>6.1%}  {group:>5}  {minutes:>6}  {floor:>5}  {right:>5}  {complaints}")
     if report.weighted_minutes is not None:
         lines.append(f"expected minutes to isolate, weighted by prior: {report.weighted_minutes:.1f}")
+    if report.weighted_floor is not None:
+        lines.append(f"floor (the least any diagnosis right at the threshold can spend), weighted by prior: "
+                     f"{report.weighted_floor:.1f}")
+        costly = sorted((f for f in report.faults if f.floor_minutes), key=lambda f: -f.prior * (f.floor_minutes or 0))
+        if costly:
+            lines.append("the highest floors, weighted by prior (a cheapest set of tests that can name the fault):")
+            for f in costly[:5]:
+                need = ", ".join(f.floor_tests) + (f" (with {', '.join(f.floor_preparations)})"
+                                                     if f.floor_preparations else "")
+                lines.append(f"  {f.id}: {f.floor_minutes:.1f} min: {need}")
     lines.append("")
     if report.groups:
         lines.append("ambiguity groups (no test tells these apart):")

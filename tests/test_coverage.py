@@ -98,6 +98,20 @@ def test_json_lists_groups_and_minutes_for_every_fault(capsys: pytest.CaptureFix
     assert "left_out" in left["complaints"]
     assert set(data["faults_without_complaint"]).isdisjoint(
         c for f in data["faults"] if f["complaints"] for c in [f["id"]])
+    # every fault with a prior has a floor; its tests and preparations are the ruleset's, and each
+    # test's preparations are among those listed; the weighted floor is the prior-weighted mean
+    costs = {t.id: t.cost for t in rs.tests}
+    needs = {t.id: set(t.prepare) for t in rs.tests}
+    weighted = 0.0
+    for fault in data["faults"]:
+        assert fault["floor_minutes"] is not None and fault["floor_minutes"] >= 0
+        assert set(fault["floor_tests"]) <= set(test_ids)
+        made = set(fault["floor_preparations"])
+        assert all(needs[t] <= made for t in fault["floor_tests"])
+        assert fault["floor_minutes"] == pytest.approx(
+            sum(costs[t] for t in fault["floor_tests"]) + sum(rs.preparations[r].cost for r in made))
+        weighted += fault["prior"] * fault["floor_minutes"]
+    assert data["weighted_floor_minutes"] == pytest.approx(weighted / sum(f["prior"] for f in data["faults"]))
 
 
 def test_human_view_and_no_simulation(capsys: pytest.CaptureFixture[str]) -> None:
