@@ -195,6 +195,9 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
                   f"{asked.mean_minutes:>5.2f} min")
     print(f"noise-free: planner {result.planner_noise_free_minutes:.2f} min, optimum "
           + (f"{optimum:.2f} min" if optimum is not None else "not found within 60 s"))
+    if result.floor_minutes is not None:
+        print(f"floor: {result.floor_minutes:.2f} min (no diagnosis that names each fault at the threshold "
+              "spends less on average; `ohmtrail coverage` gives it fault by fault)")
     for group in result.ambiguity_groups:
         print("no test tells apart: " + ", ".join(group))
     return 0
@@ -555,8 +558,9 @@ def build_parser() -> argparse.ArgumentParser:
                        "planner's evidence was built from), run the planner to its stop, and report "
                        "accuracy, tests and "
                        "minutes (prior-weighted) beside the linear walk, half-split, the walk finished "
-                       "by the planner (to the planner's certainty) and the noise-free optimum, and the "
-                       "minutes of the tests the decision rules asked for.")
+                       "by the planner (to the planner's certainty), the noise-free optimum and the floor "
+                       "(the least any diagnosis that names each fault at the threshold can spend), "
+                       "and the minutes of the tests the decision rules asked for.")
     p.add_argument("ruleset", metavar="RULESET", help="ruleset file")
     p.add_argument("--trials", type=int, default=20, metavar="N", help="runs per hypothesis (default 20)")
     p.add_argument("--seed", type=_count, default=0, metavar="S", help="random seed (default 0)")

@@ -35,7 +35,7 @@ import numpy as np
 
 from assistant.diagnosis import Conclusion, Context, Diagnosis, evidence_model
 from assistant.floor import Floor, floors
-from assistant.planner import AMBIGUITY_TOLERANCE, total_variation
+from assistant.planner import AMBIGUITY_TOLERANCE, separation
 from assistant.planner import ambiguity_groups as engine_groups
 from assistant.overlay import apply_priors
 from assistant.predict import PredictionTable
@@ -139,13 +139,7 @@ def separation_matrix(table: PredictionTable) -> np.ndarray:
     The distributions are the diagnosis engine's own outcome models (display bins with meter
     noise, OL, observation outcomes), so coverage and the engine agree on what a test can tell.
     """
-    model = evidence_model(table)
-    n_h = len(table.hypotheses)
-    sep = np.zeros((len(model.tests), n_h, n_h))
-    for t, outcomes in enumerate(model.tests):
-        rows = outcomes.model
-        sep[t] = total_variation(rows[:, None, :], rows[None, :, :])
-    return sep
+    return separation(evidence_model(table))
 
 
 def ambiguity_groups(table: PredictionTable, separation: float = DEFAULT_SEPARATION

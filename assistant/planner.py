@@ -176,6 +176,16 @@ def total_variation(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return np.asarray(0.5 * np.abs(a - b).sum(axis=-1))
 
 
+def separation(model: EvidenceModel) -> np.ndarray:
+    """``sep[t, a, b]``: total-variation distance between what test ``t`` shows under ``a`` and ``b``."""
+    n_h = model.n_hypotheses
+    sep = np.zeros((len(model.tests), n_h, n_h))
+    for t, outcomes in enumerate(model.tests):
+        rows = outcomes.model
+        sep[t] = total_variation(rows[:, None, :], rows[None, :, :])
+    return sep
+
+
 _FARTHEST: WeakKeyDictionary[EvidenceModel, dict[int, np.ndarray]] = WeakKeyDictionary()
 
 

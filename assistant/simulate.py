@@ -12,9 +12,10 @@ on vehicles it has not seen, as it would be in a workshop. Each draw has a rando
 own (:func:`reading_stream`). Then
 the noise-free version of the problem (each hypothesis shows its median reading, binned as the
 planner bins it) gives the planner's expected minutes and the exact optimum. Means are
-weighted by the hypotheses' priors. The tests a decision rule asked for are counted rule by
-rule (:class:`RuleTests`), so that a fleet engineer sees what a rule such as "fuses first"
-costs on the vehicles it fires for.
+weighted by the hypotheses' priors, and so is the floor (``assistant.floor``): the least minutes
+any diagnosis that names each fault at the threshold can spend, noise aside. The tests a
+decision rule asked for are counted rule by rule (:class:`RuleTests`), so that a fleet engineer
+sees what a rule such as "fuses first" costs on the vehicles it fires for.
 """
 
 from __future__ import annotations
@@ -40,7 +41,8 @@ from assistant.baselines import (
 from assistant.beliefs import EvidenceModel, build_model, format_value, posterior
 from assistant.diagnosis import Conclusion, Context, Diagnosis, evidence_model
 from assistant.errors import OhmtrailError
-from assistant.planner import PlannerSettings, ambiguity_groups
+from assistant.floor import floors
+from assistant.planner import PlannerSettings, ambiguity_groups, separation
 from assistant.meter import MeterProfile
 from assistant.predict import PredictionTable, predict
 from assistant.reading import Reading
@@ -170,6 +172,7 @@ class SimulationResult:
     complaint: str | None = None  # the complaint the vehicles came in with (None: none given)
     rules_at_start: tuple[str, ...] = ()  # the decision rules the start fires (the complaint's, the vehicle's)
     rule_tests: tuple[RuleTests, ...] = ()  # what the tests the rules asked for cost, rule by rule
+    floor_minutes: float | None = None  # the least mean any diagnosis right at the threshold can reach
 
     def where_minutes_go(self, n: int | None = None) -> tuple[tuple[str, float, float, float], ...]:
         """(hypothesis, prior, its mean minutes, its share of the planner's mean minutes), the
@@ -202,6 +205,7 @@ class SimulationResult:
             "complaint": self.complaint,
             "rules_at_start": list(self.rules_at_start),
             "rule_tests": [asdict(r) for r in self.rule_tests],
+            "floor_mean_minutes": self.floor_minutes,
         }
 
 
@@ -349,6 +353,10 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
         return float(priors @ (values / trials))
 
     nf_planner, nf_optimum = noise_free(loaded, table, threshold, settings, optimum_seconds, context)
+    lowest = floors(separation(model), priors, [t.cost_minutes for t in table.tests],
+                    [t.prepare for t in table.tests], start.threshold, together=groups)
+    floor = (sum(float(priors[h]) * f.minutes for h, f in enumerate(lowest) if f is not None)
+             if all(f is not None for h, f in enumerate(lowest) if priors[h] > 0) else None)
     per = tuple({"hypothesis": hyps[h].id, "prior": float(priors[h]), "accuracy": acc[h] / trials,
                  "mean_tests": tests_used[h] / trials, "mean_minutes": minutes_used[h] / trials}
                 for h in live)
@@ -366,6 +374,7 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
         rules_at_start=start.rules_fired,
         rule_tests=tuple(RuleTests(rule_id, *(weighted(counts[i]) for i in range(3)))
                          for rule_id, counts in sorted(asked.items())),
+        floor_minutes=floor,
     )
 
 
