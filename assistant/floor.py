@@ -18,7 +18,8 @@ right at the threshold.
 
 It is a floor, not a target: it counts a test as telling two hypotheses apart whenever what
 it shows differs under them at all (by ``told_above`` in total variation), as if one reading
-of it settled the question. Where it stands high, the faults behind it need an expensive test
+of it settled the question. It knows the priors it is given (the command line gives them after
+the rules that fire at the start), not a decision rule that rules faults out on a reading. Where it stands high, the faults behind it need an expensive test
 whatever the planner does (two faults in series on one wire, told apart only behind a trim
 panel); where the planner stands far above it, noise is what the minutes go on.
 """
