@@ -63,6 +63,7 @@ class FaultCoverage:
     floor_minutes: float | None = None  # least minutes to name it at the threshold (None: no prior)
     floor_tests: tuple[str, ...] = ()  # a cheapest set of tests that can
     floor_preparations: tuple[str, ...] = ()  # the preparations those tests need
+    floor_only: tuple[tuple[str, ...], ...] = ()  # per floor test, the hypotheses no other test tells from this one
 
 
 @dataclass(frozen=True)
@@ -113,7 +114,8 @@ class Coverage:
                  "confused_with": list(f.confused_with), "expected_minutes": f.expected_minutes,
                  "concluded_right": f.concluded_right, "complaints": list(f.complaints),
                  "floor_minutes": f.floor_minutes, "floor_tests": list(f.floor_tests),
-                 "floor_preparations": list(f.floor_preparations)}
+                 "floor_preparations": list(f.floor_preparations),
+                 "floor_only": {t: list(o) for t, o in zip(f.floor_tests, f.floor_only, strict=True)}}
                 for f in self.faults
             ],
             "ambiguity_groups": [list(g) for g in self.groups],
@@ -250,7 +252,9 @@ def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, se
                                     minutes, right, complaints,
                                     None if floor is None else floor.minutes,
                                     () if floor is None else tuple(table.tests[t].id for t in floor.tests),
-                                    () if floor is None else floor.preparations))
+                                    () if floor is None else floor.preparations,
+                                    () if floor is None else tuple(tuple(table.hypotheses[o].id for o in only)
+                                                                   for only in floor.only)))
     never = tuple(t.id for t in table.tests if runs > 0 and t.id not in chosen and t.id not in useless)
     without = tuple(f.id for f in faults if f.id != "none" and "+" not in f.id and not f.complaints)
     states = tuple((name, st.label, tuple(t.id for t in rs.tests if t.state == name)) for name, st in rs.states.items())
@@ -282,8 +286,9 @@ def coverage_text(report: Coverage) -> str:
         if costly:
             lines.append("the highest floors, weighted by prior (a cheapest set of tests that can name the fault):")
             for f in costly[:5]:
-                need = ", ".join(f.floor_tests) + (f" (with {', '.join(f.floor_preparations)})"
-                                                     if f.floor_preparations else "")
+                need = ", ".join(t + (f" (the only test telling it from {', '.join(o[:3])}{' ...' if len(o) > 3 else ''})" if o else "")
+                                 for t, o in zip(f.floor_tests, f.floor_only, strict=True))
+                need += f"; with {', '.join(f.floor_preparations)}" if f.floor_preparations else ""
                 lines.append(f"  {f.id}: {f.floor_minutes:.1f} min: {need}")
     lines.append("")
     if report.groups:

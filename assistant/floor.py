@@ -43,6 +43,9 @@ class Floor:
     minutes: float
     tests: tuple[int, ...]
     preparations: tuple[str, ...]
+    # for each of ``tests``, the hypotheses no other test of the ruleset tells from this one: why
+    # that test cannot be left out (two opens in series on one wire, told apart only between them)
+    only: tuple[tuple[int, ...], ...] = ()
 
 
 def floors(separation: np.ndarray, priors: Sequence[float] | np.ndarray, costs: Sequence[float],
@@ -74,7 +77,12 @@ def floors(separation: np.ndarray, priors: Sequence[float] | np.ndarray, costs: 
         if float(p[others].sum()) <= budget + 1e-15:
             result.append(Floor(0.0, (), ()))
             continue
-        result.append(_cover(told[:, h, others], p[others], budget, costs, prepare, refs, prep_minutes))
+        cover = _cover(told[:, h, others], p[others], budget, costs, prepare, refs, prep_minutes)
+        if cover is not None:
+            tells = told[:, h, :]  # (T, H): what each test of the ruleset tells from h
+            only = tuple(tuple(o for o in others if tells[t, o] and tells[:, o].sum() == 1) for t in cover.tests)
+            cover = Floor(cover.minutes, cover.tests, cover.preparations, only)
+        result.append(cover)
     return tuple(result)
 
 

@@ -106,6 +106,8 @@ def test_json_lists_groups_and_minutes_for_every_fault(capsys: pytest.CaptureFix
     for fault in data["faults"]:
         assert fault["floor_minutes"] is not None and fault["floor_minutes"] >= 0
         assert set(fault["floor_tests"]) <= set(test_ids)
+        assert set(fault["floor_only"]) == set(fault["floor_tests"])
+        assert all(set(twins) <= set(ids) - {fault["id"]} for twins in fault["floor_only"].values())
         made = set(fault["floor_preparations"])
         assert all(needs[t] <= made for t in fault["floor_tests"])
         assert fault["floor_minutes"] == pytest.approx(

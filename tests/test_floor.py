@@ -43,6 +43,10 @@ def test_twins_behind_a_panel_pay_for_the_panel() -> None:
     # 0.3 x 0.05 / 0.95 = 0.0158: t0 + t1 + the panel = 1 + 2 + 3 min
     assert got[1] is not None and got[1].minutes == pytest.approx(6.0)
     assert got[1].tests == (0, 1) and got[1].preparations == ("panel_off",)
+    # t0 is the only test telling a.open from none, t1 the only one telling it from b.open
+    assert got[1].only == ((0,), (2,))
+    # none: t1 tells it from b.open too, so t0 is not the only test for b.open
+    assert got[0].only == ((1,),)
     # b.open shows 1 on t1 where none and a.open show 0: t1 and the panel alone, 2 + 3 min
     assert got[2] is not None and got[2].minutes == pytest.approx(5.0) and got[2].tests == (1,)
     # none is told from both opens by t0 alone
@@ -114,3 +118,9 @@ def test_the_starter_key_switch_pays_for_the_column_shroud() -> None:
         assert [table.tests[t].id for t in floor.tests].count("v_key_st") == 1
         assert "column_shroud_off" in floor.preparations
         assert floor.minutes >= need
+    # and each is the other's twin: v_key_st is the only test telling them apart
+    key, wire = ids.index("key_start.stuck_open"), ids.index("w_key.open")
+    floor = got[key]
+    assert floor is not None
+    only = dict(zip([table.tests[t].id for t in floor.tests], floor.only, strict=True))
+    assert wire in only["v_key_st"]
