@@ -63,7 +63,7 @@ class FaultCoverage:
     floor_minutes: float | None = None  # least minutes to name it at the threshold (None: no prior)
     floor_tests: tuple[str, ...] = ()  # a cheapest set of tests that can
     floor_preparations: tuple[str, ...] = ()  # the preparations those tests need
-    floor_only: tuple[tuple[str, ...], ...] = ()  # per floor test, the hypotheses no other test tells from this one
+    floor_only: tuple[tuple[str, ...], ...] = ()  # per floor test, the faults only it tells this one from
 
 
 @dataclass(frozen=True)
@@ -263,33 +263,42 @@ def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, se
                     groups, useless, never, without, states, tuple(t.id for t in rs.tests if t.state is None))
 
 
+def _floor_tests_text(fault: FaultCoverage) -> str:
+    """A fault's floor tests, each with the faults only it tells this one from, and their preparations."""
+    parts = []
+    for test, only in zip(fault.floor_tests, fault.floor_only, strict=True):
+        twins = ", ".join(only[:3]) + (" ..." if len(only) > 3 else "")
+        parts.append(f"{test} (the only test telling it from {twins})" if only else test)
+    text = ", ".join(parts)
+    return text + (f"; with {', '.join(fault.floor_preparations)}" if fault.floor_preparations else "")
+
+
 def coverage_text(report: Coverage) -> str:
     """The human view of a coverage report: a table per hypothesis, then the lists."""
     lines = [f"{report.ruleset_id} {report.version}: {len(report.faults)} hypotheses"
              + (f", {report.runs} simulated diagnoses each" if report.runs else ", no simulation")]
     lines.extend(f"overlay: {o}" for o in report.overlays)
     width = max([len("hypothesis")] + [len(f.id) for f in report.faults])
-    lines.append(f"{'hypothesis':<{width}}  {'prior':>6}  {'group':>5}  {'E[min]':>6}  {'floor':>5}  {'right':>5}  complaints")
+    lines.append(f"{'hypothesis':<{width}}  {'prior':>6}  {'group':>5}  {'E[min]':>6}  {'floor':>5}  {'right':>5}  "
+                 "complaints")
     for f in report.faults:
         group = "-" if f.group is None else str(f.group + 1)
         minutes = "-" if f.expected_minutes is None else f"{f.expected_minutes:.1f}"
         right = "-" if f.concluded_right is None else f"{f.concluded_right:.0%}"
         floor = "-" if f.floor_minutes is None else f"{f.floor_minutes:.1f}"
         complaints = ", ".join(f.complaints) if f.complaints else ("-" if f.id == "none" else "NONE")
-        lines.append(f"{f.id:<{width}}  {f.prior:>6.1%}  {group:>5}  {minutes:>6}  {floor:>5}  {right:>5}  {complaints}")
+        lines.append(f"{f.id:<{width}}  {f.prior:>6.1%}  {group:>5}  {minutes:>6}  {floor:>5}  {right:>5}  "
+                     f"{complaints}")
     if report.weighted_minutes is not None:
         lines.append(f"expected minutes to isolate, weighted by prior: {report.weighted_minutes:.1f}")
     if report.weighted_floor is not None:
         lines.append(f"floor (the least any diagnosis right at the threshold can spend), weighted by prior: "
                      f"{report.weighted_floor:.1f}")
-        costly = sorted((f for f in report.faults if f.floor_minutes), key=lambda f: -f.prior * (f.floor_minutes or 0))
+        costly = sorted((f for f in report.faults if f.floor_minutes),
+                        key=lambda f: -f.prior * (f.floor_minutes or 0))
         if costly:
             lines.append("the highest floors, weighted by prior (a cheapest set of tests that can name the fault):")
-            for f in costly[:5]:
-                need = ", ".join(t + (f" (the only test telling it from {', '.join(o[:3])}{' ...' if len(o) > 3 else ''})" if o else "")
-                                 for t, o in zip(f.floor_tests, f.floor_only, strict=True))
-                need += f"; with {', '.join(f.floor_preparations)}" if f.floor_preparations else ""
-                lines.append(f"  {f.id}: {f.floor_minutes:.1f} min: {need}")
+            lines.extend(f"  {f.id}: {f.floor_minutes:.1f} min: {_floor_tests_text(f)}" for f in costly[:5])
     lines.append("")
     if report.groups:
         lines.append("ambiguity groups (no test tells these apart):")

@@ -2,8 +2,8 @@
 
 To end with hypothesis ``h`` at probability ``threshold`` or more, a diagnosis must have made
 tests that tell ``h`` from enough of the others: the hypotheses no test made tells from ``h``
-keep their share of the posterior, since every reading is as likely under them as under
-``h``. With ``q`` the total prior of those left untold,
+keep their share of the posterior, since every reading is (all but) as likely under them as
+under ``h``. With ``q`` the total prior of those left untold,
 
     P(h | readings) <= prior(h) / (prior(h) + q),
 
@@ -19,9 +19,10 @@ right at the threshold.
 It is a floor, not a target: it counts a test as telling two hypotheses apart whenever what
 it shows differs under them at all (by ``told_above`` in total variation), as if one reading
 of it settled the question. It knows the priors it is given (the command line gives them after
-the rules that fire at the start), not a decision rule that rules faults out on a reading. Where it stands high, the faults behind it need an expensive test
-whatever the planner does (two faults in series on one wire, told apart only behind a trim
-panel); where the planner stands far above it, noise is what the minutes go on.
+the rules that fire at the start), not a decision rule that rules faults out on a reading.
+Where it stands high, the faults behind it need an expensive test whatever the planner does
+(two faults in series on one wire, told apart only behind a trim panel); where the planner
+stands far above it, noise is what the minutes go on.
 """
 
 from __future__ import annotations
@@ -60,7 +61,7 @@ def floors(separation: np.ndarray, priors: Sequence[float] | np.ndarray, costs: 
     """
     sep = np.asarray(separation, dtype=float)
     p = np.asarray(priors, dtype=float)
-    n_tests, n_h = sep.shape[0], p.size
+    n_h = p.size
     group_of = {h: set(g) for g in together for h in g}
     refs = sorted({ref for needs in prepare for ref, _ in needs})
     prep_minutes = {ref: m for needs in prepare for ref, m in needs}
@@ -80,7 +81,8 @@ def floors(separation: np.ndarray, priors: Sequence[float] | np.ndarray, costs: 
         cover = _cover(told[:, h, others], p[others], budget, costs, prepare, refs, prep_minutes)
         if cover is not None:
             tells = told[:, h, :]  # (T, H): what each test of the ruleset tells from h
-            only = tuple(tuple(o for o in others if tells[t, o] and tells[:, o].sum() == 1) for t in cover.tests)
+            only = tuple(tuple(o for o in others if tells[t, o] and tells[:, o].sum() == 1)
+                         for t in cover.tests)
             cover = Floor(cover.minutes, cover.tests, cover.preparations, only)
         result.append(cover)
     return tuple(result)
