@@ -97,9 +97,10 @@ class Coverage:
     @property
     def weighted_floor(self) -> float | None:
         """The floors weighted by the hypotheses' priors: a lower bound on the mean minutes of
-        any diagnosis that names every fault at the threshold (None when no fault has a floor)."""
+        any diagnosis that names every fault at the threshold (a fault no set of tests can name
+        there counts 0; None when no fault has a floor)."""
         known = [(f.prior, f.floor_minutes) for f in self.faults if f.floor_minutes is not None]
-        total = sum(p for p, _ in known)
+        total = sum(f.prior for f in self.faults)
         return sum(p * m for p, m in known) / total if known and total > 0 else None
 
     def to_json(self) -> dict[str, Any]:

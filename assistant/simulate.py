@@ -355,8 +355,9 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
     nf_planner, nf_optimum = noise_free(loaded, table, threshold, settings, optimum_seconds, context)
     lowest = floors(separation(model), priors, [t.cost_minutes for t in table.tests],
                     [t.prepare for t in table.tests], start.threshold, together=groups)
+    # a fault no set of tests can name at the threshold counts 0: still a lower bound
     floor = (sum(float(priors[h]) * f.minutes for h, f in enumerate(lowest) if f is not None)
-             if all(f is not None for h, f in enumerate(lowest) if priors[h] > 0) else None)
+             if any(f is not None for f in lowest) else None)
     per = tuple({"hypothesis": hyps[h].id, "prior": float(priors[h]), "accuracy": acc[h] / trials,
                  "mean_tests": tests_used[h] / trials, "mean_minutes": minutes_used[h] / trials}
                 for h in live)
