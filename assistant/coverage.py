@@ -34,7 +34,7 @@ from typing import Any
 import numpy as np
 
 from assistant.diagnosis import Conclusion, Context, Diagnosis, evidence_model
-from assistant.floor import Floor, floors
+from assistant.floor import Floor, model_floors, weighted_floor
 from assistant.planner import AMBIGUITY_TOLERANCE, separation
 from assistant.planner import ambiguity_groups as engine_groups
 from assistant.overlay import apply_priors
@@ -96,12 +96,8 @@ class Coverage:
 
     @property
     def weighted_floor(self) -> float | None:
-        """The floors weighted by the hypotheses' priors: a lower bound on the mean minutes of
-        any diagnosis that names every fault at the threshold (a fault no set of tests can name
-        there counts 0; None when no fault has a floor)."""
-        known = [(f.prior, f.floor_minutes) for f in self.faults if f.floor_minutes is not None]
-        total = sum(f.prior for f in self.faults)
-        return sum(p * m for p, m in known) / total if known and total > 0 else None
+        """The floors weighted by the hypotheses' priors (``assistant.floor.weighted_floor``)."""
+        return weighted_floor([f.floor_minutes for f in self.faults], [f.prior for f in self.faults])
 
     def to_json(self) -> dict[str, Any]:
         """The documented JSON shape (see docs/authoring.md, "coverage --json")."""
@@ -145,11 +141,14 @@ def separation_matrix(table: PredictionTable) -> np.ndarray:
     return separation(evidence_model(table))
 
 
-def ambiguity_groups(table: PredictionTable, separation: float = DEFAULT_SEPARATION
+def ambiguity_groups(table: PredictionTable, separation: float = DEFAULT_SEPARATION, *,
+                     sep: np.ndarray | None = None
                      ) -> tuple[tuple[tuple[str, ...], ...], dict[str, tuple[str, ...]], tuple[str, ...]]:
-    """The groups no test tells apart, each hypothesis's direct partners, and the tests that separate nothing."""
+    """The groups no test tells apart, each hypothesis's direct partners, and the tests that
+    separate nothing; ``sep``: the table's :func:`separation_matrix` where already computed."""
     ids = [h.id for h in table.hypotheses]
-    sep = separation_matrix(table)
+    if sep is None:
+        sep = separation_matrix(table)
     told = np.asarray((sep >= separation).any(axis=0) if sep.size else np.zeros((len(ids), len(ids)), dtype=bool))
     partners = {ids[a]: tuple(ids[b] for b in range(len(ids)) if b != a and not told[a, b])
                 for a in range(len(ids))}
@@ -158,17 +157,16 @@ def ambiguity_groups(table: PredictionTable, separation: float = DEFAULT_SEPARAT
     return groups, partners, useless
 
 
-def fault_floors(table: PredictionTable, threshold: float,
-                 groups: tuple[tuple[str, ...], ...] = ()) -> tuple[Floor | None, ...]:
+def fault_floors(table: PredictionTable, threshold: float, groups: tuple[tuple[str, ...], ...] = (), *,
+                 sep: np.ndarray | None = None) -> tuple[Floor | None, ...]:
     """Each hypothesis's floor (``assistant.floor``) from the engine's outcome models and the
     table's priors; the members of one of ``groups`` may be named together."""
     index = {h.id: i for i, h in enumerate(table.hypotheses)}
     priors = np.array([h.prior for h in table.hypotheses], dtype=float)
     if priors.sum() > 0:
         priors = priors / priors.sum()
-    return floors(separation_matrix(table), priors, [t.cost_minutes for t in table.tests],
-                  [t.prepare for t in table.tests], threshold,
-                  together=[[index[h] for h in g] for g in groups])
+    return model_floors(evidence_model(table), priors, threshold,
+                        together=[[index[h] for h in g] for g in groups], sep=sep)
 
 
 # --------------------------------------------------------------------------- simulation
@@ -233,9 +231,10 @@ def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, se
     """
     rs = loaded.ruleset
     table = apply_priors(table, rs)
-    groups, partners, useless = ambiguity_groups(table, separation)
+    sep = separation_matrix(table)  # what each test tells apart, for the groups and the floors
+    groups, partners, useless = ambiguity_groups(table, separation, sep=sep)
     group_of = {hid: i for i, g in enumerate(groups) for hid in g}
-    lowest = fault_floors(table, rs.threshold, groups)
+    lowest = fault_floors(table, rs.threshold, groups, sep=sep)
     chosen: set[str] = set()
     faults: list[FaultCoverage] = []
     for h, hyp in enumerate(table.hypotheses):

@@ -33,6 +33,9 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import Bounds, LinearConstraint, milp
 
+from assistant.beliefs import EvidenceModel
+from assistant.planner import separation as separation_of
+
 TOLD_ABOVE = 0.01  # total variation above which a test is counted as telling two hypotheses apart
 
 
@@ -86,6 +89,27 @@ def floors(separation: np.ndarray, priors: Sequence[float] | np.ndarray, costs: 
             cover = Floor(cover.minutes, cover.tests, cover.preparations, only)
         result.append(cover)
     return tuple(result)
+
+
+def model_floors(model: EvidenceModel, priors: Sequence[float] | np.ndarray, threshold: float, *,
+                 together: Sequence[Sequence[int]] = (), sep: np.ndarray | None = None) -> tuple[Floor | None, ...]:
+    """:func:`floors` of an evidence model's hypotheses, from its outcome models and its table's
+    test minutes and preparations; ``sep``: its separation matrix where already computed."""
+    tests = model.table.tests
+    return floors(separation_of(model) if sep is None else sep, priors, [t.cost_minutes for t in tests],
+                  [t.prepare for t in tests], threshold, together=together)
+
+
+def weighted_floor(minutes: Sequence[float | None], priors: Sequence[float] | np.ndarray) -> float | None:
+    """The floors weighted by the priors: a lower bound on the mean minutes of any diagnosis
+    that names every fault at the threshold. A fault no set of tests can name there (None)
+    counts 0, which keeps it a lower bound; None when no fault has a floor."""
+    if all(m is None for m in minutes):
+        return None
+    total = float(np.sum(priors))
+    if total <= 0:
+        return None
+    return sum(float(p) * m for p, m in zip(priors, minutes, strict=True) if m is not None) / total
 
 
 def _cover(told: np.ndarray, weights: np.ndarray, budget: float, costs: Sequence[float],

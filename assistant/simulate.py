@@ -41,8 +41,8 @@ from assistant.baselines import (
 from assistant.beliefs import EvidenceModel, build_model, format_value, posterior
 from assistant.diagnosis import Conclusion, Context, Diagnosis, evidence_model
 from assistant.errors import OhmtrailError
-from assistant.floor import floors
-from assistant.planner import PlannerSettings, ambiguity_groups, separation
+from assistant.floor import model_floors, weighted_floor
+from assistant.planner import PlannerSettings, ambiguity_groups
 from assistant.meter import MeterProfile
 from assistant.predict import PredictionTable, predict
 from assistant.reading import Reading
@@ -353,11 +353,8 @@ def simulate(loaded: LoadedRuleset, table: PredictionTable, *, trials: int = 20,
         return float(priors @ (values / trials))
 
     nf_planner, nf_optimum = noise_free(loaded, table, threshold, settings, optimum_seconds, context)
-    lowest = floors(separation(model), priors, [t.cost_minutes for t in table.tests],
-                    [t.prepare for t in table.tests], start.threshold, together=groups)
-    # a fault no set of tests can name at the threshold counts 0: still a lower bound
-    floor = (sum(float(priors[h]) * f.minutes for h, f in enumerate(lowest) if f is not None)
-             if any(f is not None for f in lowest) else None)
+    lowest = model_floors(model, priors, start.threshold, together=groups)
+    floor = weighted_floor([None if f is None else f.minutes for f in lowest], priors)
     per = tuple({"hypothesis": hyps[h].id, "prior": float(priors[h]), "accuracy": acc[h] / trials,
                  "mean_tests": tests_used[h] / trials, "mean_minutes": minutes_used[h] / trials}
                 for h in live)

@@ -14,9 +14,6 @@ from assistant.overlay import apply_priors
 from assistant.predict import predict
 from assistant.ruleset import load_ruleset
 
-NO_PREP: list[list[tuple[str, float]]] = [[], []]
-
-
 @pytest.fixture(scope="module", autouse=True)
 def _own_cache(tmp_path_factory: pytest.TempPathFactory) -> Iterator[None]:
     with pytest.MonkeyPatch.context() as mp:
