@@ -16,8 +16,9 @@
 - ``observation``: no meter; the author's P(outcome) rows, picked by fault id, then component
   id, then ``default``. An observation with ``seen`` instead follows the circuit
   (:class:`SeenObservation`): in every variant, which of its parts pass at least ``lit_above``
-  of their rated current gives the answer, so each simulated vehicle shows the answer its own
-  part values and fault magnitude give.
+  of their rated current, and which of its relay coils carry their pull-in current (released
+  in ``since`` first, when given), gives the answer, so each simulated vehicle shows the answer
+  its own part values and fault magnitude give.
 """
 
 from __future__ import annotations
@@ -238,19 +239,27 @@ def rated_current(spec: Any, system_voltage: float) -> float | None:
 
 
 class SeenObservation:
-    """An observation whose answer follows the circuit (``seen``): which parts are lit."""
+    """An observation whose answer follows the circuit (``seen``): which parts are lit, which
+    relays pull in."""
 
     def __init__(self, test: Any, model: CircuitModel) -> None:
         self.test = test
         self.state = model.state(test.state)
-        self.rated: list[float] = []
+        self.since = None if test.seen.since is None else model.state(test.seen.since)
+        self.rated: list[float] = []  # the current each part is judged against
+        self.relay: list[bool] = []  # a relay coil: pulled in at its pull-in current, no share of it
         for part in test.seen.parts:
             found = model.by_id.get(part)
+            if found is not None and found.spec.type == "relay_coil":
+                self.rated.append(float(found.spec.pull_in))
+                self.relay.append(True)
+                continue
             rated = rated_current(found.spec, model.ruleset.system_voltage) if found is not None else None
             if rated is None:
-                raise CircuitError(f"test '{test.id}' looks at '{part}', which is not a lamp or load of the "
-                                   "circuit (only those have a rated current to be lit against)")
+                raise CircuitError(f"test '{test.id}' looks at '{part}', which is not a lamp, load or relay coil "
+                                   "of the circuit (only those have a current to be lit or pulled in against)")
             self.rated.append(rated)
+            self.relay.append(False)
 
     def answers(self, env: Env) -> np.ndarray:
         """(B,) the index of the answer (in the test's outcomes) each variant shows."""
@@ -263,6 +272,16 @@ class SeenObservation:
         if seen.full_above is not None:
             brightest = share.max(axis=1, keepdims=True) if seen.side_by_side else 1.0
             level += (level > 0) & (share >= seen.full_above * brightest)
+        top = len(seen.levels) - 1
+        for j, part in enumerate(seen.parts):
+            if not self.relay[j]:
+                continue
+            # a relay pulls in at its pull-in current (its top level: pulled_in fits lit, dim and
+            # full alike); with since, only where it was released there (a click as it pulls in)
+            pulled = share[:, j] >= 1.0
+            if self.since is not None:
+                pulled &= np.abs(env.points[self.since].current(part)) < self.rated[j]
+            level[:, j] = np.where(pulled, top, 0)
         outcomes = list(self.test.outcomes)
         index = np.empty(level.shape[0], dtype=float)
         for combo in np.unique(level, axis=0):

@@ -210,14 +210,41 @@ class _Checker:
                 for key in test.likelihoods or ():
                     if key != "default":
                         yield from self._fault_ref(key, "tests", i, "likelihoods", key, components_too=True)
-                for j, ref in enumerate(test.seen.parts if test.seen is not None else ()):
-                    comp = self.components.get(ref)
-                    if comp is None:
-                        yield self._p(f"unknown component '{ref}'", "tests", i, "seen", "parts", j)
-                    elif comp.type not in SEEN_PART_TYPES:
-                        yield self._p(f"'{ref}' is a {comp.type}: seen looks at lamps and loads, which have a "
-                                      "rated current to be lit against (a motor's current does not say whether "
-                                      "it turns)", "tests", i, "seen", "parts", j)
+                if test.seen is not None:
+                    yield from self._seen(test, i)
+
+    def _seen(self, test: ObservationTest, i: int) -> Iterator[Problem]:
+        """A look's parts: lamps and loads spoken of as lit or dark, relay coils as pulled in or
+        released; ``since`` a known state, and only for relays."""
+        seen = test.seen
+        assert seen is not None
+        relays = seen.relay_parts()
+        relay_coils = 0
+        for j, ref in enumerate(seen.parts):
+            comp = self.components.get(ref)
+            if comp is None:
+                yield self._p(f"unknown component '{ref}'", "tests", i, "seen", "parts", j)
+            elif comp.type not in SEEN_PART_TYPES:
+                yield self._p(f"'{ref}' is a {comp.type}: seen looks at lamps and loads, which have a "
+                              "rated current to be lit against, and at relay coils, which pull in or not "
+                              "(a motor's current does not say whether it turns)", "tests", i, "seen", "parts", j)
+            elif comp.type == "relay_coil":
+                relay_coils += 1
+                if j not in relays:
+                    yield self._p(f"'{ref}' is a relay coil: say pulled_in or released for it (or any), "
+                                  "not lit, dark, dim or full", "tests", i, "seen", "answers")
+            elif j in relays:
+                yield self._p(f"'{ref}' is a {comp.type}: say lit, dark, dim or full for it (or any); "
+                              "pulled_in and released are a relay coil's", "tests", i, "seen", "answers")
+        if seen.since is not None:
+            if seen.since not in self.rs.states:
+                yield self._p(f"unknown state '{seen.since}'", "tests", i, "seen", "since")
+            elif seen.since == test.state:
+                yield self._p("since names the test's own state: a relay cannot pull in going from a state "
+                              "to itself", "tests", i, "seen", "since")
+            if not relay_coils:
+                yield self._p("since applies to relay coils (a click as they pull in); this look has none",
+                              "tests", i, "seen", "since")
 
     def _complaints(self) -> Iterator[Problem]:
         for i, complaint in enumerate(self.rs.complaints):

@@ -483,10 +483,13 @@ class FuseDropTest(TestBase):
     fuse: Identifier
 
 
-Lit = Literal["lit", "dark", "dim", "full", "any"]
-# the component types a look can judge by their current: they have a rated current to be lit
-# against (not a motor: a seized one draws more than a running one and does not turn)
-SEEN_PART_TYPES = ("lamp", "load")
+Lit = Literal["lit", "dark", "dim", "full", "pulled_in", "released", "any"]
+# the component types a look can judge by their current: lamps and loads have a rated current to
+# be lit against, a relay coil its pull-in current (not a motor: a seized one draws more than a
+# running one and does not turn)
+SEEN_PART_TYPES = ("lamp", "load", "relay_coil")
+LAMP_WORDS = ("lit", "dark", "dim", "full")  # what a lamp or load shows
+RELAY_WORDS = ("pulled_in", "released")  # what a relay coil does (heard or felt as a click)
 
 
 class Seen(Frozen):
@@ -502,6 +505,12 @@ class Seen(Frozen):
     ``dim``, ``full`` or ``any`` per part in the order of ``parts`` (or a list of such patterns,
     any of which gives that answer); the first answer, in the order written, whose pattern fits
     is the one the circuit gives.
+
+    A relay coil among ``parts`` is ``pulled_in`` when it carries at least its ``pull_in``
+    current in the test's state, ``released`` below (a click heard or felt at the relay). With
+    ``since``, a state, it counts as ``pulled_in`` only where it was released in that state: the
+    click of a relay pulling in as the controls go from ``since`` to the test's state (a relay
+    already held in makes no sound).
     """
 
     parts: tuple[Identifier, ...] = Field(min_length=1, max_length=8)
@@ -509,6 +518,9 @@ class Seen(Frozen):
     full_above: float | None = Field(default=None, gt=0, le=1.5,
                                      description="share of the rated current from which a lit part is full, not dim")
     side_by_side: bool = Field(default=False, description="full_above is a share of the brightest part's current")
+    since: Identifier | None = Field(default=None, description="a relay coil is pulled_in only where it was "
+                                     "released in this state (it clicks as the controls go from it to the "
+                                     "test's state)")
     answers: dict[Identifier, tuple[tuple[Lit, ...], ...]]
 
     @field_validator("answers", mode="before")
@@ -531,12 +543,23 @@ class Seen(Frozen):
                              "under 1 of the brightest")
         for answer, patterns in self.answers.items():
             if not patterns or any(len(p) != len(self.parts) for p in patterns):
-                raise ValueError(f"answer '{answer}' needs one of lit, dark, dim, full, any for each of the "
+                raise ValueError(f"answer '{answer}' needs one of lit, dark, dim, full, any (a lamp or load) "
+                                 f"or pulled_in, released, any (a relay coil) for each of the "
                                  f"{len(self.parts)} parts {list(self.parts)}")
             if self.full_above is None and any(x in ("dim", "full") for p in patterns for x in p):
                 raise ValueError(f"answer '{answer}' tells dim from full: give full_above, the share of the "
                                  "rated current from which a lit part is full")
+        for j, part in enumerate(self.parts):
+            words = {p[j] for patterns in self.answers.values() for p in patterns} - {"any"}
+            if words & set(LAMP_WORDS) and words & set(RELAY_WORDS):
+                raise ValueError(f"part '{part}' is given both a lamp's words (lit, dark, dim, full) and a "
+                                 "relay's (pulled_in, released); a part is one or the other")
         return self
+
+    def relay_parts(self) -> tuple[int, ...]:
+        """The positions of the parts the patterns speak of as relays (pulled_in, released)."""
+        return tuple(j for j in range(len(self.parts))
+                     if any(p[j] in RELAY_WORDS for patterns in self.answers.values() for p in patterns))
 
     @property
     def levels(self) -> tuple[str, ...]:
@@ -547,6 +570,10 @@ class Seen(Frozen):
         """The first answer with a pattern that fits what the parts show (each a level of
         :attr:`levels`); None if none fits."""
         def fits(p: str, level: str) -> bool:
+            if p == "pulled_in":  # a relay's words for its two levels
+                p = "lit"
+            elif p == "released":
+                p = "dark"
             return p == "any" or p == level or (p == "lit" and level in ("dim", "full"))
 
         for answer, patterns in self.answers.items():

@@ -252,6 +252,56 @@ def test_side_by_side_judges_the_parts_against_the_brightest() -> None:
     assert shown(tab, "lamp.high_resistance", "look") == 1
 
 
-def test_only_lamps_and_loads_are_seen() -> None:
-    with pytest.raises(CircuitError, match="'w', which is not a lamp or load"):
+def test_only_lamps_loads_and_relay_coils_are_seen() -> None:
+    with pytest.raises(CircuitError, match="'w', which is not a lamp, load or relay coil"):
         table([{**LOOK, "seen": {"parts": ["w"], "answers": {"lit": ["lit"], "out": ["dark"]}}}])
+
+
+# A relay clicks as its coil pulls in (common practice): its coil fed through a switch, its
+# contact feeding a lamp. The coil's pull-in against Ohm's law: 12.6 V over 80 ohm is 157.5 mA.
+RELAY = [
+    {"id": "b", "type": "battery", "nodes": ["P", "GND"], "emf": "12.6 V"},
+    {"id": "f", "type": "fuse", "nodes": ["P", "F"], "rating": "10 A"},
+    {"id": "sw", "type": "switch", "nodes": ["F", "S"]},
+    {"id": "coil", "type": "relay_coil", "nodes": ["S", "GND"], "resistance": "80 ohm", "tolerance": 0,
+     "pull_in": "50 mA"},
+    {"id": "k", "type": "relay_contact", "nodes": ["F", "A"], "coil": "coil"},
+    {"id": "lamp", "type": "lamp", "nodes": ["A", "GND"], "rating": "21 W"},
+]
+CLICK = {"id": "click", "kind": "observation", "question": "Does the relay click as the switch goes on?",
+         "state": "on", "misjudged": 0.02,
+         "seen": {"parts": ["coil"], "since": "off", "answers": {"yes": ["pulled_in"], "no": ["released"]}}}
+
+
+def test_a_relay_is_heard_where_its_coil_pulls_in() -> None:
+    tab = table([CLICK], RELAY)
+    # pulled in with no fault (157.5 mA over its 50 mA pull-in); silent with its coil, its feed
+    # switch or its fuse open; the contact's own faults do not stop the coil pulling in
+    for hyp, answer in (("none", 0), ("coil.open", 1), ("sw.stuck_open", 1), ("f.blown", 1),
+                        ("k.stuck_open", 0), ("lamp.filament_open", 0)):
+        assert shown(tab, hyp, "click") == answer, hyp
+    assert tab.observations[0][tab.hypothesis_index("coil.open")] == pytest.approx([0.02, 0.98])
+    # a switch stuck closed holds the coil in already with the switch off: nothing to hear
+    assert shown(tab, "sw.stuck_closed", "click") == 1
+    # without since, a coil held in counts as pulled in
+    plain = table([{**CLICK, "seen": {"parts": ["coil"], "answers": {"yes": ["pulled_in"], "no": ["released"]}}}],
+                  RELAY)
+    assert shown(plain, "sw.stuck_closed", "click") == 0
+
+
+def test_a_relay_pulls_in_at_its_pull_in_current() -> None:
+    # 157.5 mA through the coil (Ohm's law, less the fuse's milliohms): a 150 mA pull-in is met,
+    # a 165 mA one is not
+    for pull_in, answer in (("150 mA", 0), ("165 mA", 1)):
+        comps = [dict(c, pull_in=pull_in) if c["id"] == "coil" else c for c in RELAY]
+        assert shown(table([CLICK], comps), "none", "click") == answer, pull_in
+
+
+def test_a_look_can_hear_a_relay_and_see_its_lamp() -> None:
+    look = {**CLICK, "outcomes": ["works", "clicks_dark", "silent"],
+            "seen": {"parts": ["coil", "lamp"], "answers": {"works": ["pulled_in", "lit"],
+                                                          "clicks_dark": ["pulled_in", "dark"],
+                                                          "silent": ["released", "any"]}}}
+    tab = table([look], RELAY)
+    for hyp, answer in (("none", 0), ("k.stuck_open", 1), ("lamp.filament_open", 1), ("coil.open", 2)):
+        assert shown(tab, hyp, "click") == answer, hyp

@@ -47,9 +47,9 @@ GOOD = """\
     misjudged: 0.05"""
 
 
-def _write(tmp_path: Path, look: str) -> Path:
+def _write(tmp_path: Path, look: str, base: str = BASE) -> Path:
     path = tmp_path / "pair.yaml"
-    path.write_text(BASE % {"look": look}, encoding="utf-8")
+    path.write_text(base % {"look": look}, encoding="utf-8")
     return path
 
 
@@ -124,3 +124,63 @@ def test_a_seen_part_must_be_a_lamp_or_load_of_the_circuit(tmp_path: Path, part:
     assert len(problems) == 1 and problems[0].message.startswith(message)
     # where it is: the line of the parts list, the field down to the part
     assert (problems[0].line, problems[0].field) == (24, "tests.0.seen.parts.1")
+
+
+# A relay is heard as it pulls in (common practice): its coil among the parts, pulled_in or
+# released, with since the state the controls come from.
+RELAY_BASE = BASE.replace("""  - {id: right, type: lamp, nodes: [F, GND], rating: 21 W}
+""", """  - {id: right, type: lamp, nodes: [F, GND], rating: 21 W}
+  - {id: sw, type: switch, nodes: [B, C]}
+  - {id: coil, type: relay_coil, nodes: [C, GND], resistance: 80 ohm, pull_in: 50 mA}
+""").replace("""  F: {}
+""", """  F: {}
+  C: {}
+""").replace("""  on: {label: on}
+""", """  on: {label: on, closes: [sw]}
+  off: {label: off}
+""")
+
+CLICK = """\
+    seen:
+      parts: [coil, left]
+      since: off
+      answers: {both: [pulled_in, lit], left_only: [pulled_in, dark], right_only: [released, lit], neither: [released, dark]}"""
+
+
+def _write_relay(tmp_path: Path, look: str) -> Path:
+    return _write(tmp_path, look, RELAY_BASE)
+
+
+def test_a_relay_look_loads_and_lints_clean(tmp_path: Path) -> None:
+    loaded = load_ruleset(_write_relay(tmp_path, CLICK))
+    seen = loaded.ruleset.tests[0].seen
+    assert seen is not None and seen.since == "off" and seen.relay_parts() == (0,)
+    # pulled_in fits the relay's top level, released its dark one
+    assert seen.answer_of(["lit", "dark"]) == "left_only" and seen.answer_of(["dark", "lit"]) == "right_only"
+    assert lint_ruleset(loaded) == []
+
+
+@pytest.mark.parametrize("look, message, field", [
+    (CLICK.replace("[pulled_in, lit], left_only: [pulled_in, dark]", "[lit, lit], left_only: [lit, dark]")
+     .replace("[released, lit], neither: [released, dark]", "[dark, lit], neither: [dark, dark]"),
+     "'coil' is a relay coil: say pulled_in or released", "tests.0.seen.answers"),
+    (CLICK.replace("[coil, left]", "[left, coil]"), "'left' is a lamp: say lit, dark, dim or full",
+     "tests.0.seen.answers"),
+    (CLICK.replace("since: off", "since: parked"), "unknown state 'parked'", "tests.0.seen.since"),
+    (CLICK.replace("since: off", "since: on"), "since names the test's own state", "tests.0.seen.since"),
+    (GOOD.replace("parts: [left, right]", "parts: [left, right]\n      since: off"),
+     "since applies to relay coils", "tests.0.seen.since"),
+])
+def test_a_relay_look_is_linted_at_its_field(tmp_path: Path, look: str, message: str, field: str) -> None:
+    problems = lint_ruleset(load_ruleset(_write_relay(tmp_path, look)))
+    # (parts swapped: the lamp spoken of as a relay and the relay as a lamp, one problem each)
+    assert len(problems) == (2 if "[left, coil]" in look else 1), problems
+    assert problems[0].message.startswith(message), problems
+    assert all(p.field == field and p.line is not None for p in problems)
+
+
+def test_a_part_is_a_lamp_or_a_relay_not_both(tmp_path: Path) -> None:
+    look = CLICK.replace("neither: [released, dark]", "neither: [dark, dark]")
+    with pytest.raises(RulesetError) as err:
+        load_ruleset(_write_relay(tmp_path, look))
+    assert "part 'coil' is given both a lamp's words" in str(err.value) and "pair.yaml:" in str(err.value)
