@@ -190,3 +190,39 @@ def test_blower_speed_try_agrees_with_the_circuit(tmp_path: Path, monkeypatch: p
         if answers[said] != running:
             wrong.append(f"{hyp.id}: answered {said}, the circuit runs speeds {sorted(running)}")
     assert wrong == []
+
+
+# The headlamps' relay clicks, in the words of `seen`: the circuit's own answer, to check the
+# hand-written rows against (a relay clicks as its coil pulls in: common practice).
+RELAY_CLICKS = {
+    "listen_k3": "    state: low_beam\n    seen:\n      parts: [k3_coil]\n      since: high_beam\n"
+                 "      answers: {\"yes\": [pulled_in], \"no\": [released]}\n",
+    "listen_k4": "    state: high_beam\n    seen:\n      parts: [k4_coil]\n      since: low_beam\n"
+                 "      answers: {\"yes\": [pulled_in], \"no\": [released]}\n",
+}
+
+
+@pytest.mark.slow
+def test_headlamp_relay_clicks_agree_with_the_circuit(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """The headlamps' relay clicks keep hand-written rows; each fault's likeliest answer must be
+    the one the circuit gives, the same looks written with ``seen`` (the coil pulling in as the
+    stalk moves) on the same ruleset."""
+    monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
+    path = RULESETS / "lamp" / "headlamps.yaml"
+    text = path.read_text(encoding="utf-8")
+    for test_id, seen in RELAY_CLICKS.items():
+        block = re.search(rf"  - id: {test_id}\n(?:    .*\n)*?    likelihoods:\n(?:      .*\n)+", text)
+        assert block is not None, test_id
+        head = block.group(0)[:block.group(0).index("    likelihoods:\n")]
+        text = text.replace(block.group(0), head + seen)
+    rewritten = tmp_path / "headlamps.yaml"
+    rewritten.write_text(text, encoding="utf-8")
+    by_hand, by_circuit = predict(load_ruleset(path), cache=False), predict(load_ruleset(rewritten), cache=False)
+    for test_id in RELAY_CLICKS:
+        t = by_hand.test_index(test_id)
+        assert by_circuit.test_index(test_id) == t and by_circuit.tests[t].misjudged is not None
+        hand, circuit = by_hand.observations[t], by_circuit.observations[t]
+        silent = {h.id for i, h in enumerate(by_circuit.hypotheses) if np.argmax(circuit[i]) == 1}
+        assert silent and len(silent) < len(by_circuit.hypotheses)  # the circuit tells faults apart
+        differ = [h.id for i, h in enumerate(by_hand.hypotheses) if np.argmax(hand[i]) != np.argmax(circuit[i])]
+        assert differ == [], f"{test_id}: the rows and the circuit disagree on {differ}"
