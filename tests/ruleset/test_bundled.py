@@ -263,3 +263,31 @@ def test_stop_lamp_looks_agree_with_the_circuit(tmp_path: Path, monkeypatch: pyt
     monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
     found = _disagreements(tmp_path, RULESETS / "lamp" / "stop_lamps.yaml", STOP_LAMPS_SEEN)
     assert found == {test_id: [] for test_id in STOP_LAMPS_SEEN}
+
+
+@pytest.mark.slow
+def test_starter_sounds_agree_with_the_solenoid(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """What the starter does at the key is written by hand (the motor's speed is no circuit
+    quantity), but whether anything at all is heard is: the solenoid winding pulling in (a
+    relay-type coil clicks as it pulls in, common practice). A probe look at the winding, added to
+    a copy of the ruleset, says where; the likeliest answer must be silent exactly there."""
+    monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
+    path = RULESETS / "starter" / "starter.yaml"
+    probe = """  - id: probe_solenoid
+    kind: observation
+    question: Does the solenoid pull in at start?
+    state: cranking
+    cost: 1 min
+    seen: {parts: [solenoid_winding], answers: {"yes": [pulled_in], "no": [released]}}
+"""
+    text = path.read_text(encoding="utf-8")
+    assert text.count("\ncomplaints:\n") == 1
+    rewritten = tmp_path / path.name
+    rewritten.write_text(text.replace("\ncomplaints:\n", "\n" + probe + "\ncomplaints:\n"), encoding="utf-8")
+    table = predict(load_ruleset(rewritten), cache=False)
+    listen, pulled = table.test_index("listen_solenoid"), table.test_index("probe_solenoid")
+    silent = table.tests[listen].outcomes.index("silent")
+    heard_nothing = {h.id for i, h in enumerate(table.hypotheses) if np.argmax(table.observations[listen][i]) == silent}
+    released = {h.id for i, h in enumerate(table.hypotheses) if table.observations[pulled][i][1] > 0.5}
+    assert released and len(released) < len(table.hypotheses)
+    assert heard_nothing == released, (sorted(heard_nothing - released), sorted(released - heard_nothing))
