@@ -291,3 +291,21 @@ def test_starter_sounds_agree_with_the_solenoid(tmp_path: Path, monkeypatch: pyt
     released = {h.id for i, h in enumerate(table.hypotheses) if table.observations[pulled][i][1] > 0.5}
     assert released and len(released) < len(table.hypotheses)
     assert heard_nothing == released, (sorted(heard_nothing - released), sorted(released - heard_nothing))
+
+
+@pytest.mark.slow
+def test_starter_test_lamp_agrees_with_the_voltage_at_86(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """The test lamp at relay K8's socket 86 (rows by hand) lights where the circuit puts battery
+    voltage on 86 at start, measured to body metal as the lamp is clipped: a lamp lights on
+    battery voltage and not on none (common practice). Its likeliest answer must be "no" exactly
+    where the meter's median reading there is under half the system voltage."""
+    monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
+    loaded = load_ruleset(RULESETS / "starter" / "starter.yaml")
+    table = predict(loaded, cache=False)
+    lamp, volts = table.test_index("lamp_k8_86"), table.test_index("v_k8_86")
+    no = table.tests[lamp].outcomes.index("no")
+    dark = {h.id for i, h in enumerate(table.hypotheses) if np.argmax(table.observations[lamp][i]) == no}
+    dead = {h.id for i, h in enumerate(table.hypotheses)
+            if np.nanmedian(table.samples[i, volts]) < loaded.ruleset.system_voltage / 2}
+    assert dead and len(dead) < len(table.hypotheses)
+    assert dark == dead, (sorted(dark - dead), sorted(dead - dark))
