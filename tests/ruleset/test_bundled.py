@@ -12,7 +12,7 @@ import pytest
 from assistant.cautions import HIGH_VOLTAGE, MAKER_FIRST, cautions_for
 
 from assistant.cases import run_cases
-from assistant.predict import predict
+from assistant.predict import PredictionTable, predict
 from assistant.ruleset import fault_list, lint_ruleset, load_ruleset, ruleset_files
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -265,6 +265,29 @@ def test_stop_lamp_looks_agree_with_the_circuit(tmp_path: Path, monkeypatch: pyt
     assert found == {test_id: [] for test_id in STOP_LAMPS_SEEN}
 
 
+def _with_probes(tmp_path: Path, path: Path, probes: str) -> PredictionTable:
+    """The predictions of a copy of a bundled ruleset with ``probes`` (tests, in YAML) added at
+    the end of its tests: a look at or a voltage on what a hand-written look is about."""
+    text = path.read_text(encoding="utf-8")
+    assert text.count("\ncomplaints:\n") == 1
+    rewritten = tmp_path / path.name
+    rewritten.write_text(text.replace("\ncomplaints:\n", "\n" + probes + "\ncomplaints:\n"), encoding="utf-8")
+    return predict(load_ruleset(rewritten), cache=False)
+
+
+def _answered(table: PredictionTable, test_id: str, outcome: str) -> set[str]:
+    """The hypotheses whose likeliest answer to an observation is ``outcome``."""
+    t = table.test_index(test_id)
+    k = table.tests[t].outcomes.index(outcome)
+    return {h.id for i, h in enumerate(table.hypotheses) if np.argmax(table.observations[t][i]) == k}
+
+
+def _under(table: PredictionTable, test_id: str, volts: float) -> set[str]:
+    """The hypotheses whose median reading of a meter test is under ``volts``."""
+    t = table.test_index(test_id)
+    return {h.id for i, h in enumerate(table.hypotheses) if np.nanmedian(table.samples[i, t]) < volts}
+
+
 @pytest.mark.slow
 def test_starter_sounds_agree_with_the_solenoid(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     """What the starter does at the key is written by hand (the motor's speed is no circuit
@@ -280,14 +303,9 @@ def test_starter_sounds_agree_with_the_solenoid(tmp_path: Path, monkeypatch: pyt
     cost: 1 min
     seen: {parts: [solenoid_winding], answers: {"yes": [pulled_in], "no": [released]}}
 """
-    text = path.read_text(encoding="utf-8")
-    assert text.count("\ncomplaints:\n") == 1
-    rewritten = tmp_path / path.name
-    rewritten.write_text(text.replace("\ncomplaints:\n", "\n" + probe + "\ncomplaints:\n"), encoding="utf-8")
-    table = predict(load_ruleset(rewritten), cache=False)
-    listen, pulled = table.test_index("listen_solenoid"), table.test_index("probe_solenoid")
-    silent = table.tests[listen].outcomes.index("silent")
-    heard_nothing = {h.id for i, h in enumerate(table.hypotheses) if np.argmax(table.observations[listen][i]) == silent}
+    table = _with_probes(tmp_path, path, probe)
+    pulled = table.test_index("probe_solenoid")
+    heard_nothing = _answered(table, "listen_solenoid", "silent")
     released = {h.id for i, h in enumerate(table.hypotheses) if table.observations[pulled][i][1] > 0.5}
     assert released and len(released) < len(table.hypotheses)
     assert heard_nothing == released, (sorted(heard_nothing - released), sorted(released - heard_nothing))
@@ -302,10 +320,26 @@ def test_starter_test_lamp_agrees_with_the_voltage_at_86(tmp_path: Path, monkeyp
     monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
     loaded = load_ruleset(RULESETS / "starter" / "starter.yaml")
     table = predict(loaded, cache=False)
-    lamp, volts = table.test_index("lamp_k8_86"), table.test_index("v_k8_86")
-    no = table.tests[lamp].outcomes.index("no")
-    dark = {h.id for i, h in enumerate(table.hypotheses) if np.argmax(table.observations[lamp][i]) == no}
-    dead = {h.id for i, h in enumerate(table.hypotheses)
-            if np.nanmedian(table.samples[i, volts]) < loaded.ruleset.system_voltage / 2}
+    dark = _answered(table, "lamp_k8_86", "no")
+    dead = _under(table, "v_k8_86", loaded.ruleset.system_voltage / 2)
     assert dead and len(dead) < len(table.hypotheses)
     assert dark == dead, (sorted(dark - dead), sorted(dead - dark))
+
+
+@pytest.mark.slow
+def test_headlamp_telltales_agree_with_the_switch_outputs(tmp_path: Path,
+                                                          monkeypatch: pytest.MonkeyPatch) -> None:
+    """The green lights-on tell-tale is fed from the light switch output, the blue high-beam one
+    from the dip switch's high output, each grounded in the cluster (rows by hand): a tell-tale
+    is dark where its feed has no voltage (common practice). The light switch output has no test
+    of its own, so a probe voltage there is added to a copy."""
+    monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
+    path = RULESETS / "lamp" / "headlamps.yaml"
+    probe = """  - {id: probe_ls_out, kind: voltage, title: light switch output, at: LS_OUT, state: low_beam, cost: 1 min}
+"""
+    table = _with_probes(tmp_path, path, probe)
+    half = load_ruleset(path).ruleset.system_voltage / 2
+    for look, feed in (("look_telltale_lights", "probe_ls_out"), ("look_telltale_high", "v_dip_high")):
+        dark, dead = _answered(table, look, "no"), _under(table, feed, half)
+        assert dead and len(dead) < len(table.hypotheses), look
+        assert dark == dead, (look, sorted(dark - dead), sorted(dead - dark))
