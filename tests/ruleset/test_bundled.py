@@ -343,3 +343,22 @@ def test_headlamp_telltales_agree_with_the_switch_outputs(tmp_path: Path,
         dark, dead = _answered(table, look, "no"), _under(table, feed, half)
         assert dead and len(dead) < len(table.hypotheses), look
         assert dark == dead, (look, sorted(dark - dead), sorted(dead - dark))
+
+
+@pytest.mark.slow
+def test_blower_still_or_spinning_agrees_with_its_current(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Whether the blower spins on speed 4 and stays still with the key out (rows by hand): a
+    motor with no current does not turn; one with its current turns, but for a seized one, which
+    draws more than a running one and turns nothing (common practice). "Still" on speed 4 must be
+    the likeliest answer exactly where the speed 4 current is under a quarter of the healthy
+    one, the seized motor added; "runs" with the key out exactly where the motor's feed is live."""
+    monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
+    loaded = load_ruleset(RULESETS / "motor" / "blower.yaml")
+    table = predict(loaded, cache=False)
+    healthy = float(np.nanmedian(table.samples[table.hypothesis_index("none"), table.test_index("i_motor_high")]))
+    assert healthy > 10  # a blower on its top speed draws tens of amps
+    no_current = _under(table, "i_motor_high", healthy / 4)
+    assert no_current and "motor.seized" not in no_current
+    assert _answered(table, "spins_on_4", "still") == no_current | {"motor.seized"}
+    live = set(h.id for h in table.hypotheses) - _under(table, "v_m_pos_key_off", loaded.ruleset.system_voltage / 2)
+    assert _answered(table, "still_key_off", "runs") == live == {"k7_contact.stuck_closed"}
