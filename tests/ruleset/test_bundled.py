@@ -275,11 +275,16 @@ def _with_probes(tmp_path: Path, path: Path, probes: str) -> PredictionTable:
     return predict(load_ruleset(rewritten), cache=False)
 
 
+def _likeliest(table: PredictionTable, test_id: str) -> dict[str, str]:
+    """Each hypothesis' likeliest answer to an observation."""
+    t = table.test_index(test_id)
+    outcomes = table.tests[t].outcomes
+    return {h.id: outcomes[int(np.argmax(table.observations[t][i]))] for i, h in enumerate(table.hypotheses)}
+
+
 def _answered(table: PredictionTable, test_id: str, outcome: str) -> set[str]:
     """The hypotheses whose likeliest answer to an observation is ``outcome``."""
-    t = table.test_index(test_id)
-    k = table.tests[t].outcomes.index(outcome)
-    return {h.id for i, h in enumerate(table.hypotheses) if np.argmax(table.observations[t][i]) == k}
+    return {h for h, answer in _likeliest(table, test_id).items() if answer == outcome}
 
 
 def _under(table: PredictionTable, test_id: str, volts: float) -> set[str]:
@@ -362,3 +367,22 @@ def test_blower_still_or_spinning_agrees_with_its_current(tmp_path: Path, monkey
     assert _answered(table, "spins_on_4", "still") == no_current | {"motor.seized"}
     live = set(h.id for h in table.hypotheses) - _under(table, "v_m_pos_key_off", loaded.ruleset.system_voltage / 2)
     assert _answered(table, "still_key_off", "runs") == live == {"k7_contact.stuck_closed"}
+
+
+@pytest.mark.slow
+def test_starter_jumper_agrees_with_its_sounds(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Bridging relay K8's socket 30 to 87 feeds the solenoid from F2 past the key switch, the
+    relay and the clutch switch (the test's own instructions; common practice). So the starter
+    cranks for a fault on that bypassed side, and otherwise does what it does at the key:
+    cranks where it cranks normally, clicks or turns slowly where it does, nothing where it is
+    silent. Each fault's likeliest answers to the two must agree so."""
+    monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
+    table = predict(load_ruleset(RULESETS / "starter" / "starter.yaml"), cache=False)
+    bypassed = ("f10", "key_start", "w_key", "k8_coil", "w_clutch", "clutch_switch", "k8_contact")
+    at_key = {"cranks_normally": "cranks", "cranks_slowly": "clicks_or_slow", "clicks_only": "clicks_or_slow",
+              "silent": "nothing"}
+    expected = {h: "cranks" if h.split(".")[0] in bypassed else at_key[answer]
+                for h, answer in _likeliest(table, "listen_solenoid").items()}
+    assert set(expected.values()) == {"cranks", "clicks_or_slow", "nothing"}
+    jumped = _likeliest(table, "jumper_k8")
+    assert {h: answer for h, answer in jumped.items() if answer != expected[h]} == {}
