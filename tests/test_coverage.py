@@ -171,3 +171,33 @@ def test_coverage_scores_on_the_vehicles_it_is_given() -> None:
     mismatched = replace(table, hypotheses=table.hypotheses[:-1], samples=table.samples[:-1])
     with pytest.raises(ValueError, match="same hypotheses and tests"):
         coverage(loaded, table, runs=1, vehicles=mismatched)
+
+
+def test_the_authoring_guide_excerpt_is_what_coverage_prints(capsys: pytest.CaptureFixture[str]) -> None:
+    """docs/authoring.md shows an excerpt of `coverage --json` on its worked example
+    (docs/examples/cv2_plate_lamps.yaml): the same keys as the command prints, and the faults,
+    groups and state it shows as the command gives them (priors to four places, the weighted
+    minutes to two), so that the guide stays true to the code."""
+    root = Path(__file__).resolve().parent.parent
+    guide = (root / "docs" / "authoring.md").read_text(encoding="utf-8")
+    start = guide.index("```json\n", guide.index("The JSON (`--json`) has this shape")) + len("```json\n")
+    shown = json.loads(guide[start:guide.index("```\n", start)])
+    example = str(root / "docs" / "examples" / "cv2_plate_lamps.yaml")
+    assert main(["check", example]) == 0  # the example's two cases pass, as the guide says
+    assert "2 cases in 1 ruleset: 2 passed, 0 failed" in capsys.readouterr().out
+    assert main(["coverage", example, "--runs", "4", "--json"]) == 0
+    printed = json.loads(capsys.readouterr().out)
+    assert list(shown) == list(printed)
+    assert printed["ruleset"]["sha256"].startswith(shown["ruleset"]["sha256"].rstrip("."))
+    assert shown["settings"] == printed["settings"]
+    by_id = {f["id"]: f for f in printed["faults"]}
+    assert len(shown["faults"]) == 2
+    for fault in shown["faults"]:
+        actual = dict(by_id[fault["id"]], prior=round(by_id[fault["id"]]["prior"], 4))
+        assert fault == actual, fault["id"]
+    assert shown["ambiguity_groups"] == printed["ambiguity_groups"][:len(shown["ambiguity_groups"])]
+    assert shown["states"] == printed["states"][:len(shown["states"])]
+    for key in ("weighted_expected_minutes", "weighted_floor_minutes"):
+        assert shown[key] == round(printed[key], 2), key
+    for key in ("coverage", "tests_never_deciding", "faults_without_complaint", "tests_without_state"):
+        assert shown[key] == printed[key], key
