@@ -270,7 +270,9 @@ class SeenObservation:
         # each part's level: 0 dark, then lit (or dim, full), as in seen.levels
         level = (share >= seen.lit_above).astype(np.int64)
         if seen.full_above is not None:
-            brightest = share.max(axis=1, keepdims=True) if seen.side_by_side else 1.0
+            # side by side, against the brightest lamp or load (a relay coil is no lamp to compare)
+            lamps = np.where(np.asarray(self.relay)[None, :], 0.0, share)
+            brightest = lamps.max(axis=1, keepdims=True) if seen.side_by_side else 1.0
             level += (level > 0) & (share >= seen.full_above * brightest)
         top = len(seen.levels) - 1
         for j, part in enumerate(seen.parts):

@@ -305,3 +305,10 @@ def test_a_look_can_hear_a_relay_and_see_its_lamp() -> None:
     tab = table([look], RELAY)
     for hyp, answer in (("none", 0), ("k.stuck_open", 1), ("lamp.filament_open", 1), ("coil.open", 2)):
         assert shown(tab, hyp, "click") == answer, hyp
+    # side by side, the lamp is judged against the brightest lamp, not against the relay's coil
+    # (157.5 mA over a 50 mA pull-in is a share of 3, which would leave a full lamp "dim")
+    look["seen"] = {"parts": ["coil", "lamp"], "full_above": 0.9, "side_by_side": True,
+                    "answers": {"works": ["pulled_in", "full"], "dim": ["pulled_in", "dim"],
+                                "clicks_dark": ["pulled_in", "dark"], "silent": ["released", "any"]}}
+    look["outcomes"] = ["works", "dim", "clicks_dark", "silent"]
+    assert shown(table([look], RELAY), "none", "click") == 0
