@@ -386,3 +386,36 @@ def test_starter_jumper_agrees_with_its_sounds(tmp_path: Path, monkeypatch: pyte
     assert set(expected.values()) == {"cranks", "clicks_or_slow", "nothing"}
     jumped = _likeliest(table, "jumper_k8")
     assert {h: answer for h, answer in jumped.items() if answer != expected[h]} == {}
+
+
+FUSE_LOOKS = {  # ruleset -> (its fuse look, the answer naming each fuse, the answer naming none)
+    "lamp/headlamps.yaml": ("look_fuses", {f"f{n}": f"F{n}" for n in (3, 4, 14, 15, 16, 17)}, "none_blown"),
+    "lamp/stop_lamps.yaml": ("look_fuse", {"f12": "yes"}, "no"),
+    "motor/blower.yaml": ("look_fuses", {"f20": "F20", "f21": "F21"}, "none_blown"),
+    "starter/starter.yaml": ("look_fuses", {"f2": "F2", "f10": "F10"}, "none_blown"),
+}
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("rel", sorted(FUSE_LOOKS))
+def test_fuse_looks_name_the_fuse_the_circuit_blows(rel: str, tmp_path: Path,
+                                                    monkeypatch: pytest.MonkeyPatch) -> None:
+    """A look for a visibly blown fuse (rows by hand) must name, as each fault's likeliest
+    answer, the fuse the circuit blows under it, or none: a short that blows a fuse shows as
+    that fuse (common practice). A probe ohms test across each fuse on the bench (OL: blown) is
+    added to a copy of the ruleset to say which."""
+    monkeypatch.setenv("OHMTRAIL_CACHE", str(tmp_path / "cache"))
+    look, names, none = FUSE_LOOKS[rel]
+    path = RULESETS / rel
+    fuses = [c for c in load_ruleset(path).ruleset.components if c.type == "fuse"]
+    assert sorted(f.id for f in fuses) == sorted(names)
+    probes = "".join(f"  - {{id: probe_{f.id}, kind: resistance, between: [{f.nodes[0]}, {f.nodes[1]}], "
+                     f"only: [{f.id}], cost: 1 min}}\n" for f in fuses)
+    table = _with_probes(tmp_path, path, probes)
+    expected = {}
+    for i, h in enumerate(table.hypotheses):
+        blown = [f.id for f in fuses if np.isinf(np.nanmedian(table.samples[i, table.test_index(f"probe_{f.id}")]))]
+        assert len(blown) <= 1, h.id  # one fuse at most goes (the most overloaded first)
+        expected[h.id] = names[blown[0]] if blown else none
+    assert set(expected.values()) == set(names.values()) | {none}  # every fuse blows under some fault
+    assert _likeliest(table, look) == expected
