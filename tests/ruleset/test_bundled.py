@@ -419,3 +419,23 @@ def test_fuse_looks_name_the_fuse_the_circuit_blows(rel: str, tmp_path: Path,
         expected[h.id] = names[blown[0]] if blown else none
     assert set(expected.values()) == set(names.values()) | {none}  # every fuse blows under some fault
     assert _likeliest(table, look) == expected
+
+
+def test_one_vehicle_is_described_one_way() -> None:
+    """Rulesets for one vehicle are read side by side by its fleet engineer. A preparation id
+    two of them share is the same access work (one title, cost and instructions), and relay
+    coils of one resistance are the one relay type, pulling in at one current (the van's
+    rulesets swap K8 for the horn relay and K3 for K4 as "the same 4-pin mini relay")."""
+    preps: dict[tuple[str, str], set[object]] = {}
+    coils: dict[tuple[str, float], set[float]] = {}
+    for path in FILES:
+        rs = load_ruleset(path).ruleset
+        for vehicle in {v.model for v in rs.applies_to}:
+            for ref, prep in rs.preparations.items():
+                preps.setdefault((vehicle, ref), set()).add((prep.title, prep.cost, prep.instructions))
+            for comp in rs.components:
+                if comp.type == "relay_coil":
+                    coils.setdefault((vehicle, float(comp.resistance)), set()).add(float(comp.pull_in))
+    assert all(len(work) == 1 for work in preps.values()), {k: v for k, v in preps.items() if len(v) > 1}
+    assert any(len(v) == 1 for v in coils.values())  # there are relay coils to compare
+    assert all(len(pull_in) == 1 for pull_in in coils.values()), coils
