@@ -439,3 +439,25 @@ def test_one_vehicle_is_described_one_way() -> None:
     assert all(len(work) == 1 for work in preps.values()), {k: v for k, v in preps.items() if len(v) > 1}
     assert any(len(v) == 1 for v in coils.values())  # there are relay coils to compare
     assert all(len(pull_in) == 1 for pull_in in coils.values()), coils
+
+
+def test_one_vehicle_numbers_each_fuse_once() -> None:
+    """A fuse number on one vehicle is one fuse: a ruleset that names a fuse it does not model
+    (the starter's fuel pump fuse, pulled for cranking) must not name one another ruleset of
+    the same vehicle models as something else (a headlamp's fuse), or the technician pulls the
+    wrong one; a fuse two rulesets model is rated and labelled alike."""
+    modelled: dict[tuple[str, str], dict[str, tuple[str, float]]] = {}
+    mentioned: dict[tuple[str, str], set[str]] = {}
+    for path in FILES:
+        rs = load_ruleset(path).ruleset
+        named = {f"f{n}" for n in re.findall(r"\bF(\d+)\b", path.read_text(encoding="utf-8"))}
+        for vehicle in {v.model for v in rs.applies_to}:
+            for comp in rs.components:
+                if comp.type == "fuse":
+                    modelled.setdefault((vehicle, comp.id), {})[_id(path)] = (comp.label, float(comp.rating))
+            mentioned[(vehicle, _id(path))] = named - {c.id for c in rs.components}
+    assert any(len(owners) > 0 for owners in modelled.values()) and any(mentioned.values())
+    clashes = {(ruleset, fuse): sorted(modelled[(vehicle, fuse)])
+               for (vehicle, ruleset), fuses in mentioned.items() for fuse in fuses if (vehicle, fuse) in modelled}
+    assert clashes == {}
+    assert all(len(set(owners.values())) == 1 for owners in modelled.values())
