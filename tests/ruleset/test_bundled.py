@@ -287,10 +287,10 @@ def _answered(table: PredictionTable, test_id: str, outcome: str) -> set[str]:
     return {h for h, answer in _likeliest(table, test_id).items() if answer == outcome}
 
 
-def _under(table: PredictionTable, test_id: str, volts: float) -> set[str]:
-    """The hypotheses whose median reading of a meter test is under ``volts``."""
+def _under(table: PredictionTable, test_id: str, value: float) -> set[str]:
+    """The hypotheses whose median reading of a meter test is under ``value`` (SI units)."""
     t = table.test_index(test_id)
-    return {h.id for i, h in enumerate(table.hypotheses) if np.nanmedian(table.samples[i, t]) < volts}
+    return {h.id for i, h in enumerate(table.hypotheses) if np.nanmedian(table.samples[i, t]) < value}
 
 
 @pytest.mark.slow
