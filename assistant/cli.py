@@ -620,8 +620,9 @@ def build_parser() -> argparse.ArgumentParser:
                        "(ambiguity groups), the expected minutes to isolate it in simulated diagnoses, "
                        "its floor (the least minutes any diagnosis must spend to name it at the "
                        "threshold, with the tests that set it), the tests that never change any "
-                       "decision, the faults no complaint leads to, and the operating states the tests "
-                       "need. --json gives the shape in docs/authoring.md.")
+                       "decision, the faults no complaint leads to, the operating states the tests "
+                       "need, and the looks answered by hand-written rows rather than by the circuit. "
+                       "--json gives the shape in docs/authoring.md.")
     p.add_argument("ruleset", metavar="RULESET")
     p.add_argument("--json", action="store_true", help="print JSON")
     p.add_argument("--runs", type=_count, default=4, metavar="N",

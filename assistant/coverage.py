@@ -40,7 +40,7 @@ from assistant.planner import ambiguity_groups as engine_groups
 from assistant.overlay import apply_priors
 from assistant.predict import PredictionTable
 from assistant.ruleset.load import LoadedRuleset
-from assistant.ruleset.model import Ruleset
+from assistant.ruleset.model import ObservationTest, Ruleset
 from assistant.simulate import draw_reading, reading_stream, vehicles_or
 
 log = logging.getLogger("ohmtrail.coverage")
@@ -84,6 +84,7 @@ class Coverage:
     without_complaint: tuple[str, ...]
     states: tuple[tuple[str, str, tuple[str, ...]], ...]  # (state id, label, tests that need it)
     tests_without_state: tuple[str, ...]
+    looks_with_rows: tuple[str, ...] = ()  # observations answered by hand-written rows, not by seen
 
     @property
     def weighted_minutes(self) -> float | None:
@@ -126,6 +127,7 @@ class Coverage:
             "faults_without_complaint": list(self.without_complaint),
             "states": [{"id": s, "label": label, "tests": list(tests)} for s, label, tests in self.states],
             "tests_without_state": list(self.tests_without_state),
+            "looks_with_rows": list(self.looks_with_rows),
         }
 
 
@@ -259,8 +261,10 @@ def coverage(loaded: LoadedRuleset, table: PredictionTable, *, runs: int = 4, se
     without = tuple(f.id for f in faults if f.id != "none" and "+" not in f.id and not f.complaints)
     states = tuple((name, st.label, tuple(t.id for t in rs.tests if t.state == name)) for name, st in rs.states.items())
     log.info("%s: %d groups, %d tests separate nothing, %d never chosen", rs.id, len(groups), len(useless), len(never))
+    by_hand = tuple(t.id for t in rs.tests if isinstance(t, ObservationTest) and t.seen is None)
     return Coverage(rs.id, rs.version, loaded.sha256, loaded.overlays, runs, seed, separation, tuple(faults),
-                    groups, useless, never, without, states, tuple(t.id for t in rs.tests if t.state is None))
+                    groups, useless, never, without, states, tuple(t.id for t in rs.tests if t.state is None),
+                    by_hand)
 
 
 def _floor_tests_text(fault: FaultCoverage) -> str:
@@ -317,4 +321,7 @@ def coverage_text(report: Coverage) -> str:
         lines.append(f"  {state} ({label}): {', '.join(tests) if tests else 'no test'}")
     if report.tests_without_state:
         lines.append(f"  no state: {', '.join(report.tests_without_state)}")
+    if report.looks_with_rows:
+        lines.append("looks answered by hand-written rows (check each fault's likeliest answer against "
+                     "`ohmtrail predict`, or write the look with seen): " + ", ".join(report.looks_with_rows))
     return "\n".join(lines)

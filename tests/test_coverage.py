@@ -201,3 +201,14 @@ def test_the_authoring_guide_excerpt_is_what_coverage_prints(capsys: pytest.Capt
         assert shown[key] == round(printed[key], 2), key
     for key in ("coverage", "tests_never_deciding", "faults_without_complaint", "tests_without_state"):
         assert shown[key] == printed[key], key
+
+
+def test_coverage_names_the_looks_answered_by_hand_written_rows(capsys: pytest.CaptureFixture[str]) -> None:
+    # the starter's relay click follows the circuit (seen); its sounds at the key are rows
+    assert main(["coverage", "rulesets/starter/starter.yaml", "--runs", "0", "--json"]) == 0
+    looks = json.loads(capsys.readouterr().out)["looks_with_rows"]
+    loaded = load_ruleset("rulesets/starter/starter.yaml")
+    rows = [t.id for t in loaded.ruleset.tests if t.kind == "observation" and t.seen is None]
+    assert looks == rows and "listen_solenoid" in looks and "listen_k8" not in looks
+    assert main(["coverage", "rulesets/starter/starter.yaml", "--runs", "0"]) == 0
+    assert "looks answered by hand-written rows" in capsys.readouterr().out
