@@ -135,16 +135,10 @@ def test_headlamp_looks_for_lamps_lit_agree_with_the_circuit(tmp_path: Path,
         t = table.test_index(test_id)
         return {h.id for i, h in enumerate(table.hypotheses) if np.nanmedian(table.samples[i, t]) > half}
 
-    def answered(test_id: str, outcome: str) -> set[str]:
-        t = table.test_index(test_id)
-        k = table.tests[t].outcomes.index(outcome)
-        rows = table.observations[t]
-        return {h.id for i, h in enumerate(table.hypotheses) if int(np.argmax(rows[i])) == k}
-
     low_when_off, high_when_off = live("v_k3_87_off"), live("v_k4_87_off")
     assert low_when_off and high_when_off  # there are faults to compare
-    assert answered("look_lamps_off", "low_lit") == low_when_off
-    assert answered("look_lamps_off", "high_lit") == high_when_off
+    assert _answered(table, "look_lamps_off", "low_lit") == low_when_off
+    assert _answered(table, "look_lamps_off", "high_lit") == high_when_off
     # a relay's output live with its coil dead: its contact is welded
     k3_welded = low_when_off - live("v_k3_86_off")
     k4_welded = high_when_off - live("v_k4_86_off")
@@ -153,7 +147,7 @@ def test_headlamp_looks_for_lamps_lit_agree_with_the_circuit(tmp_path: Path,
                for m in ("open", "high_resistance")}
     for look, answer, by_relay in (("look_low_on_high", "stay_lit", live("coil_k3_on_high") | k3_welded),
                                    ("look_high_on_low", "lit", live("coil_k4_on_low") | k4_welded)):
-        lit = answered(look, answer)
+        lit = _answered(table, look, answer)
         assert by_relay <= lit, look
         assert lit - by_relay and lit - by_relay <= grounds, look  # backfed through a bad ground
 
@@ -239,11 +233,9 @@ def _disagreements(tmp_path: Path, path: Path, looks: dict[str, str]) -> dict[st
     for test_id in looks:
         t = by_hand.test_index(test_id)
         assert by_circuit.test_index(test_id) == t and by_circuit.tests[t].misjudged is not None
-        hand, circuit = by_hand.observations[t], by_circuit.observations[t]
-        answers = {int(np.argmax(row)) for row in circuit}
-        assert len(answers) > 1  # the circuit tells faults apart: the check can fail
-        found[test_id] = [h.id for i, h in enumerate(by_hand.hypotheses)
-                          if np.argmax(hand[i]) != np.argmax(circuit[i])]
+        hand, circuit = _likeliest(by_hand, test_id), _likeliest(by_circuit, test_id)
+        assert len(set(circuit.values())) > 1  # the circuit tells faults apart: the check can fail
+        found[test_id] = [h for h, answer in hand.items() if answer != circuit[h]]
     return found
 
 
